@@ -1,0 +1,330 @@
+"""Load and validate a qgp config (TOML) and its CSV data, once, at the edge.
+
+Section and key names are a contract (docs/config.md). Every error names the file, section/key
+or row, and says how to fix it; nothing heavy runs before validation has passed.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from .errors import QgpError
+from .settings import (
+    CircuitSettings,
+    Config,
+    DataSpec,
+    Encoding,
+    Evolution,
+    KernelFamily,
+    KernelSpec,
+    NoiseSpec,
+    ReadoutSettings,
+    Strategy,
+    choices,
+)
+
+__all__ = ["load_config", "parse_config", "Dataset", "load_dataset", "read_csv", "MAX_CLOCK_QUBITS"]
+
+#: Phase estimation with more clock qubits than this is never simulable here (memory guard).
+MAX_CLOCK_QUBITS = 24
+
+_SECTIONS: dict[str, tuple[str, ...]] = {
+    "data": ("train", "test", "target", "center"),
+    "kernel": ("family", "lengthscale", "amplitude", "support", "fit", "smoothness"),
+    "noise": ("variance", "target_condition"),
+    "circuit": (
+        "clock_qubits",
+        "encoding",
+        "evolution",
+        "trotter_steps",
+        "trotter_order",
+        "evolution_time",
+        "filter_floor",
+    ),
+    "readout": ("shots", "seed", "strategy", "memory_cap_gib"),
+}
+
+
+def load_config(path: str | Path) -> Config:
+    """Read and validate a TOML config file; CSV paths are relative to the file."""
+    path = Path(path)
+    if not path.is_file():
+        raise QgpError(f"config file {path} does not exist; check the path (try `qgp demo --out DIR` for an example)")
+    try:
+        raw = tomllib.loads(path.read_text(encoding="utf-8"))
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
+        raise QgpError(f"{path} is not valid TOML: {exc}; fix the syntax") from None
+    return parse_config(raw, base_dir=path.parent, source=path)
+
+
+def parse_config(raw: dict[str, Any], *, base_dir: Path, source: Path | None = None) -> Config:
+    """Validate a config given as nested dicts (as TOML parses it)."""
+    where = str(source) if source else "config"
+    for section in raw:
+        if section not in _SECTIONS:
+            raise QgpError(
+                f"{where}: unknown section [{section}]; valid sections are "
+                + ", ".join(f"[{s}]" for s in _SECTIONS)
+            )
+        if not isinstance(raw[section], dict):
+            raise QgpError(f"{where}: [{section}] must be a table of keys, not a value")
+        for key in raw[section]:
+            if key not in _SECTIONS[section]:
+                raise QgpError(
+                    f"{where}: unknown key '{key}' in [{section}]; valid keys are "
+                    + ", ".join(_SECTIONS[section])
+                )
+    if "data" not in raw:
+        raise QgpError(f"{where}: missing [data] section; add [data] with train = \"...csv\" and target = \"column\"")
+    v = _Validator(where)
+    data = _parse_data(v, raw["data"], base_dir)
+    kernel = _parse_kernel(v, raw.get("kernel", {}))
+    noise = _parse_noise(v, raw.get("noise", {}), kernel)
+    circuit = _parse_circuit(v, raw.get("circuit", {}))
+    readout = _parse_readout(v, raw.get("readout", {}))
+    return Config(data=data, kernel=kernel, noise=noise, circuit=circuit, readout=readout, source=source)
+
+
+class _Validator:
+    """Typed getters that name the file, section and key in every error."""
+
+    def __init__(self, where: str):
+        self.where = where
+
+    def fail(self, section: str, key: str, msg: str) -> QgpError:
+        return QgpError(f"{self.where}: [{section}] {key} {msg}")
+
+    def number(self, table, section, key, default=None, *, positive=False, minimum=None, gt=None):
+        if key not in table:
+            return default
+        val = table[key]
+        if isinstance(val, bool) or not isinstance(val, (int, float)):
+            raise self.fail(section, key, f"must be a number, got {val!r}")
+        val = float(val)
+        if not math.isfinite(val):
+            raise self.fail(section, key, f"must be finite, got {val}")
+        if positive and val <= 0:
+            raise self.fail(section, key, f"must be > 0, got {val:g}")
+        if minimum is not None and val < minimum:
+            raise self.fail(section, key, f"must be ≥ {minimum:g}, got {val:g}")
+        if gt is not None and val <= gt:
+            raise self.fail(section, key, f"must be > {gt:g}, got {val:g}")
+        return val
+
+    def integer(self, table, section, key, default, *, minimum=None, maximum=None):
+        if key not in table:
+            return default
+        val = table[key]
+        if isinstance(val, bool) or not isinstance(val, int):
+            raise self.fail(section, key, f"must be a whole number, got {val!r}")
+        if minimum is not None and val < minimum:
+            raise self.fail(section, key, f"must be ≥ {minimum}, got {val}")
+        if maximum is not None and val > maximum:
+            raise self.fail(section, key, f"must be ≤ {maximum}, got {val}")
+        return val
+
+    def boolean(self, table, section, key, default):
+        if key not in table:
+            return default
+        val = table[key]
+        if not isinstance(val, bool):
+            raise self.fail(section, key, f"must be true or false, got {val!r}")
+        return val
+
+    def string(self, table, section, key, default=None):
+        if key not in table:
+            return default
+        val = table[key]
+        if not isinstance(val, str) or not val:
+            raise self.fail(section, key, f"must be a non-empty string, got {val!r}")
+        return val
+
+    def choice(self, table, section, key, default, literal_type):
+        if key not in table:
+            return default
+        allowed = choices(literal_type)
+        val = table[key]
+        if val not in allowed or isinstance(val, bool):
+            shown = ", ".join(repr(a) for a in allowed)
+            raise self.fail(section, key, f"must be one of {shown}, got {val!r}")
+        return val
+
+
+def _parse_data(v: _Validator, t: dict, base_dir: Path) -> DataSpec:
+    train = v.string(t, "data", "train")
+    target = v.string(t, "data", "target")
+    if train is None:
+        raise v.fail("data", "train", "is required: the training CSV path, relative to the config file")
+    if target is None:
+        raise v.fail("data", "target", "is required: the name of the target column in the CSV header")
+    test = v.string(t, "data", "test")
+    paths = {}
+    for key, rel in (("train", train), ("test", test)):
+        if rel is None:
+            continue
+        p = (base_dir / rel).resolve()
+        if not p.is_file():
+            raise v.fail("data", key, f"file {p} does not exist; the path is relative to the config file")
+        paths[key] = p
+    return DataSpec(
+        train=paths["train"], target=target, test=paths.get("test"), center=v.boolean(t, "data", "center", True)
+    )
+
+
+def _parse_kernel(v: _Validator, t: dict) -> KernelSpec:
+    d = KernelSpec()
+    family: KernelFamily = v.choice(t, "kernel", "family", d.family, KernelFamily)
+    ls = t.get("lengthscale", d.lengthscale)
+    if isinstance(ls, list):
+        if not ls:
+            raise v.fail("kernel", "lengthscale", "list is empty; give one positive number per input column")
+        vals = tuple(v.number({"x": x}, "kernel", "lengthscale", positive=True) for x in ls)
+        lengthscale: float | tuple[float, ...] = vals
+    else:
+        lengthscale = v.number({"lengthscale": ls}, "kernel", "lengthscale", positive=True)
+    smooth = t.get("smoothness", d.smoothness)
+    if smooth not in (1, 2) or isinstance(smooth, bool):
+        raise v.fail("kernel", "smoothness", f"must be 1 (φ_3,1) or 2 (φ_3,2), got {smooth!r}")
+    if "smoothness" in t and family != "wendland":
+        raise v.fail("kernel", "smoothness", f"applies only to family = \"wendland\", not {family!r}; remove it")
+    return KernelSpec(
+        family=family,
+        lengthscale=lengthscale,
+        amplitude=v.number(t, "kernel", "amplitude", d.amplitude, positive=True),
+        support=v.number(t, "kernel", "support", None, positive=True),
+        fit=v.boolean(t, "kernel", "fit", d.fit),
+        smoothness=smooth,
+    )
+
+
+def _parse_noise(v: _Validator, t: dict, kernel: KernelSpec) -> NoiseSpec:
+    var = v.number(t, "noise", "variance", None, minimum=0.0)
+    kappa = v.number(t, "noise", "target_condition", None, gt=1.0)
+    if var is not None and kappa is not None:
+        raise QgpError(
+            f"{v.where}: [noise] sets both variance and target_condition; keep one "
+            "(target_condition chooses the variance that gives that condition number)"
+        )
+    if var is None and kappa is None and not kernel.fit:
+        raise QgpError(
+            f"{v.where}: [noise] needs variance (σ²) or target_condition (κ), "
+            "or set [kernel] fit = true to fit the noise"
+        )
+    return NoiseSpec(variance=var, target_condition=kappa)
+
+
+def _parse_circuit(v: _Validator, t: dict) -> CircuitSettings:
+    d = CircuitSettings()
+    evolution = v.choice(t, "circuit", "evolution", d.evolution, Evolution)
+    encoding = v.choice(t, "circuit", "encoding", d.encoding, Encoding)
+    if "encoding" in t and evolution != "walk":
+        raise v.fail(
+            "circuit",
+            "encoding",
+            f"applies only to evolution = \"walk\" (the {evolution!r} oracle uses no block register); remove it",
+        )
+    order = t.get("trotter_order", d.trotter_order)
+    if order not in (1, 2) or isinstance(order, bool):
+        raise v.fail("circuit", "trotter_order", f"must be 1 or 2, got {order!r}")
+    return CircuitSettings(
+        clock_qubits=v.integer(t, "circuit", "clock_qubits", d.clock_qubits, minimum=1, maximum=MAX_CLOCK_QUBITS),
+        encoding=encoding,
+        evolution=evolution,
+        trotter_steps=v.integer(t, "circuit", "trotter_steps", d.trotter_steps, minimum=1),
+        trotter_order=order,
+        evolution_time=v.number(t, "circuit", "evolution_time", None, positive=True),
+        filter_floor=v.number(t, "circuit", "filter_floor", None, positive=True),
+    )
+
+
+def _parse_readout(v: _Validator, t: dict) -> ReadoutSettings:
+    d = ReadoutSettings()
+    cap = v.number(t, "readout", "memory_cap_gib", None, positive=True)
+    return ReadoutSettings(
+        shots=v.integer(t, "readout", "shots", d.shots, minimum=0),
+        seed=v.integer(t, "readout", "seed", d.seed, minimum=0),
+        strategy=v.choice(t, "readout", "strategy", d.strategy, Strategy),
+        memory_cap_bytes=None if cap is None else int(cap * 2**30),
+    )
+
+
+@dataclass(frozen=True)
+class Dataset:
+    """Training and (optional) test data in file order; ``y_test`` is None without a target column."""
+
+    X_train: np.ndarray
+    y_train: np.ndarray
+    X_test: np.ndarray | None
+    y_test: np.ndarray | None
+    inputs: tuple[str, ...]
+    target: str
+
+
+def read_csv(path: Path, target: str, *, target_required: bool = True) -> tuple[np.ndarray, np.ndarray | None, tuple[str, ...]]:
+    """Parse a numeric CSV with a header row into (X, y or None, input column names)."""
+    try:
+        with open(path, newline="", encoding="utf-8") as fh:
+            rows = list(csv.reader(fh))
+    except UnicodeDecodeError:
+        raise QgpError(f"{path} is not a UTF-8 text CSV file; export it as CSV") from None
+    rows = [r for r in rows if any(cell.strip() for cell in r)]
+    if not rows:
+        raise QgpError(f"{path} is empty; it needs a header row and data rows")
+    header = [h.strip() for h in rows[0]]
+    if len(set(header)) != len(header):
+        raise QgpError(f"{path}: duplicate column names in the header {header}; rename them")
+    if target not in header and target_required:
+        raise QgpError(
+            f"{path}: target column '{target}' not in the header; columns are {', '.join(header)} "
+            "(set [data] target to one of them)"
+        )
+    inputs = tuple(h for h in header if h != target)
+    if not inputs:
+        raise QgpError(f"{path}: no input columns besides the target '{target}'; add at least one")
+    values = np.empty((len(rows) - 1, len(header)))
+    for i, row in enumerate(rows[1:], start=2):
+        if len(row) != len(header):
+            raise QgpError(f"{path}, row {i}: {len(row)} cells but the header has {len(header)}; fix the row")
+        for j, cell in enumerate(row):
+            try:
+                x = float(cell)
+            except ValueError:
+                raise QgpError(
+                    f"{path}, row {i}, column '{header[j]}': '{cell}' is not a number; fix or remove the row"
+                ) from None
+            if not math.isfinite(x):
+                raise QgpError(
+                    f"{path}, row {i}, column '{header[j]}': value {cell} is not finite; fix or remove the row"
+                )
+            values[i - 2, j] = x
+    in_idx = [header.index(c) for c in inputs]
+    y = values[:, header.index(target)] if target in header else None
+    return values[:, in_idx], y, inputs
+
+
+def load_dataset(spec: DataSpec) -> Dataset:
+    """Read the training (and test) CSVs named in ``[data]``, in file order, never reordered."""
+    X, y, inputs = read_csv(spec.train, spec.target)
+    if X.shape[0] < 2:
+        raise QgpError(f"{spec.train}: {X.shape[0]} training row(s); a GP needs at least 2")
+    Xs = ys = None
+    if spec.test is not None:
+        Xs, ys, test_inputs = read_csv(spec.test, spec.target, target_required=False)
+        if set(test_inputs) != set(inputs):
+            raise QgpError(
+                f"{spec.test}: input columns {list(test_inputs)} differ from the training file's "
+                f"{list(inputs)}; the test file needs the same input columns (the target is optional)"
+            )
+        if Xs.shape[0] < 1:
+            raise QgpError(f"{spec.test}: no test rows; add rows or drop [data] test")
+        order = [test_inputs.index(c) for c in inputs]
+        Xs = Xs[:, order]
+    return Dataset(X_train=X, y_train=y, X_test=Xs, y_test=ys, inputs=inputs, target=spec.target)
+

@@ -1,0 +1,115 @@
+"""Typed, frozen configuration: what a `qgp` config file says, after validation.
+
+The TOML section and key names are a contract (see docs/config.md); `qgp.config` parses and
+validates a file into these dataclasses once, at the edge. Everything downstream takes these
+objects and never re-checks free strings.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal, get_args
+
+__all__ = [
+    "KernelFamily",
+    "Encoding",
+    "Evolution",
+    "Strategy",
+    "Rotation",
+    "TrotterOrder",
+    "DataSpec",
+    "KernelSpec",
+    "NoiseSpec",
+    "CircuitSettings",
+    "ReadoutSettings",
+    "Config",
+    "choices",
+]
+
+KernelFamily = Literal["rbf", "matern32", "matern52", "wendland"]
+Encoding = Literal["lcu", "dilation"]
+Evolution = Literal["exact", "trotter", "walk"]
+Strategy = Literal["amortised", "per-point"]
+Rotation = Literal["inverse", "inverse_sqrt"]
+TrotterOrder = Literal[1, 2]
+
+
+def choices(literal_type) -> tuple:
+    """The allowed values of a ``Literal`` type, for validation and error messages."""
+    return get_args(literal_type)
+
+
+@dataclass(frozen=True)
+class DataSpec:
+    """``[data]``: CSV files (header row), the target column, and prior-mean centring."""
+
+    train: Path
+    target: str
+    test: Path | None = None
+    center: bool = True
+
+
+@dataclass(frozen=True)
+class KernelSpec:
+    """``[kernel]``: family and hyperparameters.
+
+    For ``wendland`` the lengthscale is the support radius and ``smoothness`` picks
+    φ_{3,1} (1) or φ_{3,2} (2). ``support`` (any family) multiplies the kernel by the
+    taper φ_{3,1}(distance / support).
+    """
+
+    family: KernelFamily = "rbf"
+    lengthscale: float | tuple[float, ...] = 1.0
+    amplitude: float = 1.0
+    support: float | None = None
+    fit: bool = False
+    smoothness: Literal[1, 2] = 1
+
+
+@dataclass(frozen=True)
+class NoiseSpec:
+    """``[noise]``: either a fixed variance σ² or a target condition number κ of A = K + σ²I."""
+
+    variance: float | None = None
+    target_condition: float | None = None
+
+
+@dataclass(frozen=True)
+class CircuitSettings:
+    """``[circuit]``: the inversion circuit.
+
+    ``encoding`` applies only to ``evolution = "walk"`` (the other oracles need no block
+    register). ``evolution_time`` and ``filter_floor`` override the values derived from
+    the eigenvalue bounds.
+    """
+
+    clock_qubits: int = 8
+    encoding: Encoding = "dilation"
+    evolution: Evolution = "walk"
+    trotter_steps: int = 1
+    trotter_order: TrotterOrder = 2
+    evolution_time: float | None = None
+    filter_floor: float | None = None
+
+
+@dataclass(frozen=True)
+class ReadoutSettings:
+    """``[readout]``: ``shots = 0`` means exact outcome probabilities."""
+
+    shots: int = 0
+    seed: int = 20261202
+    strategy: Strategy = "amortised"
+    memory_cap_bytes: int | None = None
+
+
+@dataclass(frozen=True)
+class Config:
+    """A whole validated config file. ``source`` is the file it came from (None if built in code)."""
+
+    data: DataSpec
+    kernel: KernelSpec = KernelSpec()
+    noise: NoiseSpec = NoiseSpec()
+    circuit: CircuitSettings = CircuitSettings()
+    readout: ReadoutSettings = ReadoutSettings()
+    source: Path | None = None

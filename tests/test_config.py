@@ -1,0 +1,164 @@
+"""Config and data validation: every bad input gets a clear message before heavy work."""
+
+import json
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from qgp.cli import main
+from qgp.config import load_config, load_dataset
+from qgp.demo import demo_config_path
+from qgp.errors import QgpError
+from qgp.problem import build_problem, problem_from_config
+from qgp.kernels import RBF
+
+TRAIN = "x,y\n0.0,1.0\n1.0,2.0\n2.5,0.5\n"
+
+
+def _write(tmp_path: Path, toml: str, train: str = TRAIN, test: str | None = None) -> Path:
+    (tmp_path / "train.csv").write_text(train)
+    if test is not None:
+        (tmp_path / "test.csv").write_text(test)
+    cfg = tmp_path / "c.toml"
+    cfg.write_text(toml)
+    return cfg
+
+
+BASE = '[data]\ntrain = "train.csv"\ntarget = "y"\n'
+
+
+def test_minimal_config_loads_with_defaults(tmp_path):
+    cfg = load_config(_write(tmp_path, BASE + "[noise]\nvariance = 0.1\n"))
+    assert cfg.kernel.family == "rbf" and cfg.data.center is True
+    assert cfg.circuit.evolution == "walk" and cfg.circuit.encoding == "dilation"
+    assert cfg.readout.shots == 0 and cfg.readout.strategy == "amortised"
+
+
+@pytest.mark.parametrize(
+    "extra, message",
+    [
+        ("[noise]\nvariance = 0.1\n[kernel]\nwidth = 2\n", "unknown key 'width' in \\[kernel\\]; valid keys are family"),
+        ("[noise]\nvariance = 0.1\n[solver]\nx = 1\n", "unknown section \\[solver\\]"),
+        ("[noise]\nvariance = 0.1\ntarget_condition = 10\n", "sets both variance and target_condition"),
+        ("[noise]\nvariance = 'big'\n", "\\[noise\\] variance must be a number"),
+        ("[noise]\nvariance = 0.1\n[kernel]\nfamily = 'cubic'\n", "must be one of 'rbf', 'matern32'"),
+        ("[noise]\nvariance = 0.1\n[kernel]\nlengthscale = -1\n", "lengthscale must be > 0"),
+        ("[noise]\nvariance = 0.1\n[circuit]\nclock_qubits = 0\n", "clock_qubits must be ≥ 1"),
+        ("[noise]\nvariance = 0.1\n[circuit]\nclock_qubits = 2.5\n", "clock_qubits must be a whole number"),
+        ("[noise]\nvariance = 0.1\n[circuit]\nevolution = 'exact'\nencoding = 'lcu'\n", "applies only to evolution"),
+        ("[noise]\nvariance = 0.1\n[readout]\nstrategy = 'fast'\n", "must be one of 'amortised', 'per-point'"),
+        ("[noise]\nvariance = 0.1\n[readout]\nshots = -5\n", "shots must be ≥ 0"),
+        ("[noise]\ntarget_condition = 1.0\n", "target_condition must be > 1"),
+        ("", "\\[noise\\] needs variance"),
+        ("[noise]\nvariance = 0.1\n[kernel]\nsmoothness = 2\n", "applies only to family = \"wendland\""),
+    ],
+)
+def test_bad_config_values(tmp_path, extra, message):
+    with pytest.raises(QgpError, match=message):
+        load_config(_write(tmp_path, BASE + extra))
+
+
+def test_missing_files(tmp_path):
+    with pytest.raises(QgpError, match="does not exist"):
+        load_config(tmp_path / "nope.toml")
+    cfg = tmp_path / "c.toml"
+    cfg.write_text('[data]\ntrain = "missing.csv"\ntarget = "y"\n[noise]\nvariance = 0.1\n')
+    with pytest.raises(QgpError, match="missing.csv does not exist; the path is relative to the config file"):
+        load_config(cfg)
+
+
+def test_invalid_toml(tmp_path):
+    with pytest.raises(QgpError, match="is not valid TOML"):
+        load_config(_write(tmp_path, "[data\n"))
+
+
+@pytest.mark.parametrize(
+    "train, message",
+    [
+        ("x,y\n0,1\n1,abc\n", "row 3, column 'y': 'abc' is not a number"),
+        ("x,y\n0,1\nnan,2\n", "row 3, column 'x': value nan is not finite"),
+        ("x,y\n0,1\n1,inf\n", "row 3, column 'y': value inf is not finite"),
+        ("x,y\n0,1\n", "1 training row\\(s\\); a GP needs at least 2"),
+        ("x,z\n0,1\n1,2\n", "target column 'y' not in the header; columns are x, z"),
+        ("x,y\n0,1\n1,2,3\n", "row 3: 3 cells but the header has 2"),
+    ],
+)
+def test_bad_csv(tmp_path, train, message):
+    cfg = load_config(_write(tmp_path, BASE + "[noise]\nvariance = 0.1\n", train=train))
+    with pytest.raises(QgpError, match=message):
+        load_dataset(cfg.data)
+
+
+def test_test_file_columns_must_match(tmp_path):
+    cfg = load_config(_write(tmp_path, BASE + 'test = "test.csv"\n[noise]\nvariance = 0.1\n', test="w\n1\n"))
+    with pytest.raises(QgpError, match="differ from the training file's"):
+        load_dataset(cfg.data)
+
+
+def test_test_file_without_target_is_fine_and_reordered(tmp_path):
+    cfg = load_config(
+        _write(
+            tmp_path,
+            '[data]\ntrain = "train.csv"\ntest = "test.csv"\ntarget = "y"\n[noise]\nvariance = 0.1\n',
+            train="a,y,b\n0,1,5\n1,2,6\n2,0,7\n",
+            test="b,a\n9,3\n",
+        )
+    )
+    ds = load_dataset(cfg.data)
+    assert ds.inputs == ("a", "b") and ds.y_test is None
+    np.testing.assert_array_equal(ds.X_test, [[3.0, 9.0]])
+
+
+def test_duplicate_inputs_without_noise(tmp_path):
+    cfg = load_config(_write(tmp_path, BASE + "[noise]\nvariance = 0.0\n", train="x,y\n0,1\n0,2\n1,3\n"))
+    with pytest.raises(QgpError, match="duplicate training inputs .* make K singular"):
+        problem_from_config(cfg)
+
+
+def test_api_shape_errors():
+    k = RBF(amplitude=1.0, lengthscale=1.0)
+    with pytest.raises(QgpError, match="one value per row of X"):
+        build_problem(np.zeros((3, 1)), np.zeros(4), k, noise_variance=0.1)
+    with pytest.raises(QgpError, match="non-finite value"):
+        build_problem(np.array([0.0, 1.0, np.inf]), np.zeros(3), k, noise_variance=0.1)
+    with pytest.raises(QgpError, match="input column"):
+        build_problem(np.zeros((3, 2)) + np.arange(3)[:, None], np.zeros(3), k, noise_variance=0.1, X_test=np.zeros((2, 3)))
+
+
+def test_centering_is_added_back(tmp_path):
+    cfg = load_config(demo_config_path())
+    p = problem_from_config(cfg)
+    assert p.center and abs(p.y_offset - p.y.mean()) < 1e-15
+    assert abs(p.y_centered.mean()) < 1e-12
+    # A far-away test point reverts to the prior mean, which is the training mean.
+    far = p.exact.predict(np.array([[1e6]])).mean[0]
+    assert abs(far - p.y.mean()) < 1e-9
+
+
+def test_demo_inspect_json(capsys):
+    assert main(["inspect", "--demo", "--json"]) == 0
+    info = json.loads(capsys.readouterr().out)
+    for key in ("n_train", "padded_size", "condition_number", "sparsity", "noise_variance", "eigenvalue_min", "eigenvalue_max"):
+        assert key in info
+    assert info["n_train"] == 16 and info["padded_size"] == 16
+    # The demo sets target_condition = 20 (see qgp/demo/ice_transect.toml).
+    assert abs(info["condition_number"] - 20.0) < 1e-9
+    assert info["qubits"]["total"] == 4 + 8 + 1 + 1
+    assert info["statevector_bytes"] == 16 * 2**14
+
+
+def test_cli_error_is_one_line(tmp_path, capsys):
+    bad = _write(tmp_path, BASE + "[noise]\nvariance = 0.1\n[kernel]\nwidth = 2\n")
+    assert main(["inspect", str(bad)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("qgp: error:") and "\n" not in err and "Traceback" not in err
+
+
+def test_console_script_version_and_help():
+    out = subprocess.run([sys.executable, "-m", "qgp.cli", "--version"], capture_output=True, text=True)
+    assert out.returncode == 0 and out.stdout.startswith("qgp ")
+    out = subprocess.run([sys.executable, "-m", "qgp.cli", "inspect", "--help"], capture_output=True, text=True)
+    assert out.returncode == 0 and "--json" in out.stdout
