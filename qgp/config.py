@@ -36,7 +36,7 @@ __all__ = ["load_config", "parse_config", "Dataset", "load_dataset", "read_csv",
 MAX_CLOCK_QUBITS = 24
 
 _SECTIONS: dict[str, tuple[str, ...]] = {
-    "data": ("train", "test", "target", "center"),
+    "data": ("train", "test", "target", "center", "n_train", "subsample_seed"),
     "kernel": ("family", "lengthscale", "amplitude", "support", "fit", "smoothness"),
     "noise": ("variance", "target_condition"),
     "circuit": (
@@ -174,7 +174,12 @@ def _parse_data(v: _Validator, t: dict, base_dir: Path) -> DataSpec:
             raise v.fail("data", key, f"file {p} does not exist; the path is relative to the config file")
         paths[key] = p
     return DataSpec(
-        train=paths["train"], target=target, test=paths.get("test"), center=v.boolean(t, "data", "center", True)
+        train=paths["train"],
+        target=target,
+        test=paths.get("test"),
+        center=v.boolean(t, "data", "center", True),
+        n_train=v.integer(t, "data", "n_train", None, minimum=2),
+        subsample_seed=v.integer(t, "data", "subsample_seed", 0, minimum=0),
     )
 
 
@@ -314,6 +319,13 @@ def load_dataset(spec: DataSpec) -> Dataset:
     X, y, inputs = read_csv(spec.train, spec.target)
     if X.shape[0] < 2:
         raise QgpError(f"{spec.train}: {X.shape[0]} training row(s); a GP needs at least 2")
+    if spec.n_train is not None:
+        if spec.n_train > X.shape[0]:
+            raise QgpError(
+                f"[data] n_train = {spec.n_train} but {spec.train} has only {X.shape[0]} rows; lower n_train"
+            )
+        keep = np.sort(np.random.default_rng(spec.subsample_seed).permutation(X.shape[0])[: spec.n_train])
+        X, y = X[keep], y[keep]
     Xs = ys = None
     if spec.test is not None:
         Xs, ys, test_inputs = read_csv(spec.test, spec.target, target_required=False)

@@ -42,12 +42,18 @@ def choices(literal_type) -> tuple:
 
 @dataclass(frozen=True)
 class DataSpec:
-    """``[data]``: CSV files (header row), the target column, and prior-mean centring."""
+    """``[data]``: CSV files (header row), the target column, and prior-mean centring.
+
+    ``n_train`` keeps a reproducible random subset of that many training rows (in file order),
+    drawn from a permutation seeded by ``subsample_seed``: subsets for growing n are nested.
+    """
 
     train: Path
     target: str
     test: Path | None = None
     center: bool = True
+    n_train: int | None = None
+    subsample_seed: int = 0
 
 
 @dataclass(frozen=True)

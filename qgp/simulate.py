@@ -22,6 +22,8 @@ __all__ = [
     "require_memory",
     "statevector_bytes",
     "simulator",
+    "set_threads",
+    "cpu_count",
     "run_statevector",
     "run_statevectors",
     "run_counts",
@@ -60,16 +62,30 @@ def require_memory(n_bytes: int, what: str, cap: int | None = None) -> None:
         )
 
 
-def _threads() -> int:
+_THREADS: int | None = None
+
+
+def cpu_count() -> int:
+    """Cores this process may run on."""
     return max(1, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else os.cpu_count() or 1)
 
 
+def set_threads(n: int | None) -> None:
+    """Cap the simulator's threads (sweep workers pin this so workers × threads ≤ cores)."""
+    global _THREADS
+    _THREADS = None if n is None else max(1, int(n))
+
+
+def simulator():
+    """A statevector AerSimulator with gate fusion on and its threads set to the cores (or the cap)."""
+    return _simulator(_THREADS or cpu_count())
+
+
 @lru_cache(maxsize=4)
-def simulator(threads: int | None = None):
-    """A statevector AerSimulator with gate fusion on and its threads set to the cores."""
+def _simulator(threads: int):
     from qiskit_aer import AerSimulator
 
-    return AerSimulator(method="statevector", max_parallel_threads=threads or _threads(), fusion_enable=True)
+    return AerSimulator(method="statevector", max_parallel_threads=threads, fusion_enable=True)
 
 
 def run_statevectors(circuits: list[QuantumCircuit], *, cap: int | None = None) -> list[np.ndarray]:

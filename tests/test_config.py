@@ -162,3 +162,18 @@ def test_console_script_version_and_help():
     assert out.returncode == 0 and out.stdout.startswith("qgp ")
     out = subprocess.run([sys.executable, "-m", "qgp.cli", "inspect", "--help"], capture_output=True, text=True)
     assert out.returncode == 0 and "--json" in out.stdout
+
+
+def test_training_subsample_is_reproducible_and_nested(tmp_path):
+    rows = "x,y\n" + "".join(f"{i},{i * i}\n" for i in range(20))
+    sets = []
+    for n in (5, 10):
+        cfg = load_config(_write(tmp_path, BASE + f"n_train = {n}\nsubsample_seed = 3\n[noise]\nvariance = 0.1\n", train=rows))
+        ds = load_dataset(cfg.data)
+        assert ds.X_train.shape == (n, 1) and np.all(np.diff(ds.X_train[:, 0]) > 0)  # file order kept
+        np.testing.assert_array_equal(ds.y_train, ds.X_train[:, 0] ** 2)
+        sets.append(set(ds.X_train[:, 0]))
+    assert sets[0] < sets[1]
+    cfg = load_config(_write(tmp_path, BASE + "n_train = 50\n[noise]\nvariance = 0.1\n", train=rows))
+    with pytest.raises(QgpError, match="has only 20 rows"):
+        load_dataset(cfg.data)
