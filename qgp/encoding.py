@@ -1,0 +1,338 @@
+"""Loading data into qubits: amplitude encoding, Pauli decomposition and block encodings of A.
+
+Qubit order follows qiskit: ``system[0]`` is the least significant bit, so amplitude ``j`` of the
+``system`` register is entry ``j`` of the input vector (training row ``j``, never reordered).
+
+A block encoding of a real symmetric matrix A is a unitary U on ``system`` ⊗ ``block`` with
+
+    (⟨0|_block ⊗ I) U (|0⟩_block ⊗ I) = A/α,
+
+α ≥ ‖A‖ the subnormalisation. ``block`` qubits come after the ``system`` qubits, so in U's matrix
+(index = system + 2^m · block) the top-left 2^m × 2^m block is A/α. Both encodings here are
+Hermitian as built (U² = I), which the qubitization walk of `qgp.phase_estimation` needs
+(Low & Chuang, Quantum 3, 163 (2019)).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Literal
+
+import numpy as np
+from qiskit.circuit import QuantumCircuit, QuantumRegister
+from qiskit.circuit.library import UCRYGate, UnitaryGate
+from qiskit.quantum_info import Operator, PauliList, SparsePauliOp
+
+from qgp.errors import QgpError
+
+__all__ = [
+    "SYSTEM",
+    "BLOCK",
+    "BlockEncoding",
+    "amplitude_encoding",
+    "normalised_amplitudes",
+    "pauli_decomposition",
+    "lcu_block_encoding",
+    "dilation_block_encoding",
+    "block_encoding",
+    "check_matrix",
+]
+
+SYSTEM = "system"
+BLOCK = "block"
+
+# Pauli coefficients below this are round-off of a dense transform, not terms of A.
+_PAULI_CUTOFF = 1e-14
+# Relative asymmetry accepted as round-off of a symmetric matrix.
+_SYMMETRY_RTOL = 1e-10
+
+
+def _num_qubits_of(length: int, what: str) -> int:
+    if length < 1 or length & (length - 1):
+        raise QgpError(
+            f"{what} has length {length}, not a power of two; pad the problem to 2^m rows "
+            "(the padding step of the kernel module does this) before building circuits"
+        )
+    return length.bit_length() - 1
+
+
+def normalised_amplitudes(vector) -> np.ndarray:
+    """The real unit vector b/‖b‖ that amplitude encoding loads; checks length and values."""
+    b = np.asarray(vector, dtype=float).reshape(-1)
+    _num_qubits_of(b.size, "the vector to encode")
+    if not np.all(np.isfinite(b)):
+        raise QgpError("the vector to encode has NaN or infinite entries; clean the data first")
+    norm = float(np.linalg.norm(b))
+    if norm == 0.0:
+        raise QgpError("the vector to encode is all zeros; there is no state to prepare")
+    return b / norm
+
+
+def _real_amplitude_tree(amplitudes: np.ndarray, reg: QuantumRegister, name: str) -> QuantumCircuit:
+    """A fixed unitary with |0…0⟩ ↦ Σ_j v_j|j⟩ for a real unit vector v: a binary tree of RYs.
+
+    Level l rotates qubit n−1−l by θ = 2·atan2(b, a), uniformly controlled by the l more
+    significant qubits, where a, b are the norms of the two halves of the current block
+    (Grover & Rudolph, arXiv:quant-ph/0208112 (2002); Möttönen et al., QIC 5, 467 (2005)). At the
+    last level a, b are the signed entries themselves, so RY(θ) with θ in (−2π, 2π] puts the
+    signs in. Only RY and uniformly controlled RY: a real orthogonal matrix, exact under any
+    transpilation, whose inverse is the exact inverse (the LCU needs PREPARE† = PREPARE⁻¹).
+    """
+    v = np.asarray(amplitudes, dtype=float)
+    n = len(reg)
+    qc = QuantumCircuit(reg, name=name)
+    for level in range(n):
+        target = n - 1 - level
+        blocks = v.reshape(2**level, 2, 2 ** (n - 1 - level))
+        if level == n - 1:
+            a, b = blocks[:, 0, 0], blocks[:, 1, 0]
+        else:
+            a = np.linalg.norm(blocks[:, 0, :], axis=1)
+            b = np.linalg.norm(blocks[:, 1, :], axis=1)
+        # The first axis is j >> (target+1): the value of qubits target+1 … n−1 with qubit
+        # target+1 least significant, which is how UCRYGate indexes its controls.
+        angles = 2 * np.arctan2(b, a)
+        if level == 0:
+            qc.ry(float(angles[0]), reg[target])
+        else:
+            qc.append(UCRYGate([float(t) for t in angles]), [reg[target], *reg[target + 1 :]])
+    return qc
+
+
+def amplitude_encoding(vector, name: str = SYSTEM) -> QuantumCircuit:
+    """Circuit on register ``name`` preparing Σ_j b_j/‖b‖ |j⟩ from |0…0⟩ (``name[0]`` least significant).
+
+    Uses the real RY tree rather than qiskit's ``StatePreparation``: same state, but a fixed
+    real unitary whose inverse is exact, and Aer 0.18 crashed on the multiplexers that
+    ``StatePreparation.inverse()`` transpiles to.
+    """
+    b = normalised_amplitudes(vector)
+    reg = QuantumRegister(_num_qubits_of(b.size, "the vector to encode"), name)
+    return _real_amplitude_tree(b, reg, "encode")
+
+
+def check_matrix(A) -> np.ndarray:
+    """A as a float array after checking it is square, power-of-two sized, finite and symmetric."""
+    a = np.asarray(A)
+    if np.iscomplexobj(a):
+        if np.any(np.abs(a.imag) > 0):
+            raise QgpError("the matrix has complex entries; qgp expects a real symmetric matrix")
+        a = a.real
+    a = np.array(a, dtype=float)
+    if a.ndim != 2 or a.shape[0] != a.shape[1]:
+        raise QgpError(f"the matrix has shape {a.shape}; it must be square")
+    _num_qubits_of(a.shape[0], "the matrix")
+    if not np.all(np.isfinite(a)):
+        raise QgpError("the matrix has NaN or infinite entries; check the kernel hyperparameters")
+    scale = max(float(np.max(np.abs(a))), np.finfo(float).tiny)
+    asym = float(np.max(np.abs(a - a.T)))
+    if asym > _SYMMETRY_RTOL * scale:
+        raise QgpError(
+            f"the matrix is not symmetric (max |A - Aᵀ| = {asym:.3g}); pass the symmetric kernel "
+            "matrix K + σ²I"
+        )
+    return 0.5 * (a + a.T)
+
+
+def _walsh_hadamard(x: np.ndarray) -> np.ndarray:
+    """Unnormalised Walsh–Hadamard transform along the last axis: y_z = Σ_j (−1)^{z·j} x_j."""
+    y = np.array(x, dtype=float)
+    n = y.shape[-1]
+    h = 1
+    while h < n:
+        y = y.reshape(*y.shape[:-1], n // (2 * h), 2, h)
+        a, b = y[..., 0, :], y[..., 1, :]
+        y = np.stack((a + b, a - b), axis=-2).reshape(*y.shape[:-3], n)
+        h *= 2
+    return y
+
+
+def pauli_decomposition(A) -> SparsePauliOp:
+    """A = Σ_P c_P P over Pauli strings, c_P = Tr(P A)/2^m real for real symmetric A.
+
+    Writes P = i^{|x∧z|} X^x Z^z (qubit-wise bit masks x, z). Then
+    Tr(X^x Z^z A) = Σ_j (−1)^{z·j} A[j, j⊕x], so for each x one Walsh–Hadamard transform over j
+    gives every z at once: O(4^m · m) work instead of 4^m traces. Terms with an odd number of Y
+    are imaginary-weighted and vanish for real symmetric A; terms with |c| < 1e-14 are dropped.
+    """
+    a = check_matrix(A)
+    dim = a.shape[0]
+    m = _num_qubits_of(dim, "the matrix")
+    j = np.arange(dim)
+    x = np.arange(dim)
+    # rows: x mask; columns: j. d[x, j] = A[j, j⊕x]
+    d = a[j[None, :], j[None, :] ^ x[:, None]]
+    traces = _walsh_hadamard(d)  # traces[x, z] = Tr(X^x Z^z A)
+    xs, zs = np.meshgrid(x, x, indexing="ij")
+    both = xs & zs
+    n_y = sum((both >> q) & 1 for q in range(m))  # qubits carrying a Y
+    # c = i^{n_y} Tr(X^x Z^z A)/2^m; only even n_y survive for real A, with sign (−1)^{n_y/2}.
+    even = n_y % 2 == 0
+    coeffs = np.where(even, traces * (-1.0) ** (n_y // 2), 0.0) / dim
+    keep = np.abs(coeffs) >= _PAULI_CUTOFF
+    if not np.any(keep):
+        raise QgpError("the matrix is zero; there is nothing to invert")
+    bits = 1 << np.arange(m)
+    xk, zk = xs[keep], zs[keep]
+    x_bits = (xk[:, None] & bits[None, :]) != 0
+    z_bits = (zk[:, None] & bits[None, :]) != 0
+    paulis = PauliList.from_symplectic(z_bits, x_bits)
+    return SparsePauliOp(paulis, coeffs[keep].astype(complex))
+
+
+@dataclass(frozen=True)
+class BlockEncoding:
+    """A Hermitian unitary U on registers ``system`` (m qubits) and ``block`` with top-left block A/α.
+
+    ``kind`` is ``"lcu"`` or ``"dilation"``; ``n_pauli_terms`` is the number of Pauli strings the
+    LCU selects over (0 for the dilation). ``unitary`` holds U as a dense matrix when it was
+    built densely (the dilation); `matrix()` computes it otherwise.
+    """
+
+    circuit: QuantumCircuit
+    alpha: float
+    kind: Literal["lcu", "dilation"]
+    n_system_qubits: int
+    n_block_qubits: int
+    n_pauli_terms: int
+    unitary: np.ndarray | None = field(default=None, repr=False, compare=False)
+    pauli_op: SparsePauliOp | None = field(default=None, repr=False, compare=False)
+    prepare_matrix: np.ndarray | None = field(default=None, repr=False, compare=False)
+
+    def matrix(self) -> np.ndarray:
+        """U as a dense matrix, index = system + 2^m · block.
+
+        For the LCU it is assembled from its parts, U = Σ_j V†|j⟩⟨j|V ⊗ Q_j with V = PREPARE and
+        Q_j = sign(c_j)·P_j (I for unused j), not by simulating the circuit gate by gate.
+        """
+        if self.unitary is not None:
+            return self.unitary
+        if self.pauli_op is not None and self.prepare_matrix is not None:
+            return _lcu_matrix(self.pauli_op, self.prepare_matrix)
+        return Operator(self.circuit).data
+
+    def encoded_block(self) -> np.ndarray:
+        """(⟨0|_block ⊗ I) U (|0⟩_block ⊗ I), which equals A/α."""
+        dim = 2**self.n_system_qubits
+        return self.matrix()[:dim, :dim]
+
+
+def _signed_pauli_gate(pauli, negative: bool, m: int):
+    """The gate ±P on m qubits (global phase π for −P, which matters once controlled)."""
+    qc = QuantumCircuit(m, name=("-" if negative else "") + pauli.to_label())
+    for q in range(m):
+        xq, zq = bool(pauli.x[q]), bool(pauli.z[q])
+        if xq and zq:
+            qc.y(q)
+        elif xq:
+            qc.x(q)
+        elif zq:
+            qc.z(q)
+    if negative:
+        qc.global_phase = np.pi
+    return qc.to_gate()
+
+
+def _lcu_matrix(op: SparsePauliOp, v: np.ndarray) -> np.ndarray:
+    dim_b, dim_s = v.shape[0], 2**op.num_qubits
+    q = np.empty((dim_b, dim_s, dim_s), dtype=complex)
+    q[:] = np.eye(dim_s)
+    for j, (pauli, c) in enumerate(zip(op.paulis, op.coeffs.real)):
+        q[j] = np.sign(c) * pauli.to_matrix()
+    outer = np.einsum("ja,jb->jab", v.conj(), v).reshape(dim_b, -1)
+    u = (outer.T @ q.reshape(dim_b, -1)).reshape(dim_b, dim_b, dim_s, dim_s)
+    return u.transpose(0, 2, 1, 3).reshape(dim_b * dim_s, dim_b * dim_s)
+
+
+def lcu_block_encoding(A) -> BlockEncoding:
+    """U = PREPARE† · SELECT · PREPARE over A's Pauli decomposition A = Σ_j c_j P_j.
+
+    PREPARE|0⟩ = Σ_j √(|c_j|/α)|j⟩ on ``block``; SELECT applies sign(c_j)·P_j on ``system`` when
+    ``block`` = j (identity on unused block values). α = Σ_j |c_j|. SELECT is Hermitian (each
+    ±P_j is), so U is Hermitian for any PREPARE; then ⟨0|U|0⟩_block = Σ_j (|c_j|/α) sign(c_j) P_j
+    = A/α.
+    """
+    op = pauli_decomposition(A)
+    coeffs = op.coeffs.real
+    n_terms = len(coeffs)
+    m = op.num_qubits
+    alpha = float(np.sum(np.abs(coeffs)))
+    k = max(1, int(np.ceil(np.log2(n_terms))))
+    amps = np.zeros(2**k)
+    amps[:n_terms] = np.sqrt(np.abs(coeffs) / alpha)
+    amps /= np.linalg.norm(amps)  # guard round-off; the sum of |c_j|/α is 1 by construction
+    system = QuantumRegister(m, SYSTEM)
+    block = QuantumRegister(k, BLOCK)
+    qc = QuantumCircuit(system, block, name="lcu")
+    prepare = _real_amplitude_tree(amps, QuantumRegister(k, "b"), "prepare").to_gate()
+    qc.append(prepare, block[:])
+    for j, (pauli, c) in enumerate(zip(op.paulis, coeffs)):
+        gate = _signed_pauli_gate(pauli, c < 0, m)
+        qc.append(gate.control(k, ctrl_state=j, annotated=False), [*block, *system])
+    qc.append(prepare.inverse(), block[:])
+    return BlockEncoding(
+        circuit=qc,
+        alpha=alpha,
+        kind="lcu",
+        n_system_qubits=m,
+        n_block_qubits=k,
+        n_pauli_terms=n_terms,
+        pauli_op=op,
+        prepare_matrix=Operator(prepare).data,
+    )
+
+
+def _row_sum_bound(a: np.ndarray) -> float:
+    """max_i Σ_j |A_ij| ≥ ‖A‖₂ for symmetric A (Gershgorin: it bounds every |λ|)."""
+    return float(np.max(np.sum(np.abs(a), axis=1)))
+
+
+def dilation_block_encoding(A, alpha: float | None = None) -> BlockEncoding:
+    """One-ancilla dilation U = [[B, S], [S, −B]], B = A/α, S = √(I − B²).
+
+    S is built from A's eigendecomposition, so B and S commute and U² = I (U Hermitian and
+    unitary). α defaults to the row-sum (Gershgorin) bound on ‖A‖; an α below ‖A‖ is refused
+    because √(I − B²) would not exist.
+    """
+    a = check_matrix(A)
+    m = _num_qubits_of(a.shape[0], "the matrix")
+    evals, evecs = np.linalg.eigh(a)
+    norm = float(np.max(np.abs(evals)))
+    if norm == 0.0:
+        raise QgpError("the matrix is zero; there is nothing to invert")
+    if alpha is None:
+        alpha = _row_sum_bound(a)
+    alpha = float(alpha)
+    if not np.isfinite(alpha) or alpha < norm * (1 - 1e-12):
+        raise QgpError(
+            f"dilation subnormalisation alpha={alpha:.6g} is below the matrix norm {norm:.6g}; "
+            "pass alpha ≥ ‖A‖ or leave it unset to use the row-sum bound"
+        )
+    alpha = max(alpha, norm)
+    mu = evals / alpha
+    b = a / alpha
+    s = (evecs * np.sqrt(np.clip(1.0 - mu**2, 0.0, None))) @ evecs.T
+    s = 0.5 * (s + s.T)
+    u = np.block([[b, s], [s, -b]])
+    system = QuantumRegister(m, SYSTEM)
+    block = QuantumRegister(1, BLOCK)
+    qc = QuantumCircuit(system, block, name="dilation")
+    qc.append(UnitaryGate(u, label="dilation", check_input=False), [*system, *block])
+    return BlockEncoding(
+        circuit=qc,
+        alpha=alpha,
+        kind="dilation",
+        n_system_qubits=m,
+        n_block_qubits=1,
+        n_pauli_terms=0,
+        unitary=u.astype(complex),
+    )
+
+
+def block_encoding(A, kind: Literal["lcu", "dilation"]) -> BlockEncoding:
+    """Dispatch on ``kind`` (the ``[circuit] encoding`` setting)."""
+    if kind == "lcu":
+        return lcu_block_encoding(A)
+    if kind == "dilation":
+        return dilation_block_encoding(A)
+    raise QgpError(f"unknown block encoding {kind!r}; choose 'lcu' or 'dilation'")

@@ -1,0 +1,330 @@
+"""Phase-estimation inversion of A (HHL: Harrow, Hassidim & Lloyd, PRL 103, 150502 (2009)).
+
+Phase estimation writes the decoded eigenvalue λ̃_k of each eigencomponent into ``clock``; an
+eigenvalue-conditioned RY on ``flag`` then puts amplitude g(λ̃_k) on flag = 1, with
+
+    g = C/λ̃ (``inverse``)   or   g = √(C/λ̃) (``inverse_sqrt``),
+
+C the smallest admitted λ̃ so g ≤ 1. Clock values with λ̃ below the filter floor (or λ̃ ≤ 0) get no
+rotation. Undoing phase estimation returns ``clock`` (and ``block``) to |0⟩, so for a normalised
+input b the part of the state with flag = 1, clock = 0, block = 0 is ≈ C·A⁻¹b on ``system``
+(``inverse``) and P(flag = 1) ≈ C·‖A^(-1/2)b‖² = C·bᵀA⁻¹b (``inverse_sqrt``, no uncompute needed).
+
+Register and qubit order of `InversionCircuit.circuit` (qiskit: first qubit least significant):
+
+    system (m) | clock (c) | flag (1) | block (b, walk only)
+
+so a statevector index is  i = s + 2^m·k + 2^(m+c)·f + 2^(m+c+1)·β  with s the system value
+(``system[0]`` its least significant bit), k the clock value, f the flag and β the block value.
+`postselected_system_amplitudes` reads the entries with f = 1, k = 0, β = 0.
+
+Filtering: the floor is max(λ_lo − one clock bin, λ_lo/2) unless ``[circuit] filter_floor`` is
+set. Phase estimation leaks much of λ_min's weight into the bin just below it, so a floor at λ_lo
+itself would throw that weight away. One clock bin is 2π/(t·2^c) for ``exact``/``trotter``; for
+the walk, whose grid α·cos(2πk/2^c) is not uniform, it is the local spacing at λ_lo,
+(2π/2^c)·√(α² − λ_lo²).
+
+Two forms of the same operator: ``"gate"`` (uniformly controlled RY, gate-level oracles; what is
+counted and exported) and ``"simulation"`` (fused controlled powers, and the multiplexed RY as
+S·H·D·H·S† on the flag with D diagonal over clock ⊗ flag, which Aer applies natively).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from qiskit.circuit import QuantumCircuit, QuantumRegister
+from qiskit.circuit.library import DiagonalGate, UCRYGate
+
+from qgp.encoding import (
+    BLOCK,
+    SYSTEM,
+    BlockEncoding,
+    amplitude_encoding,
+    block_encoding,
+    check_matrix,
+)
+from qgp.errors import QgpError
+from qgp.phase_estimation import (
+    CLOCK,
+    Form,
+    PhaseOracle,
+    inverse_phase_estimation_circuit,
+    phase_estimation_circuit,
+    phase_oracle,
+)
+from qgp.settings import CircuitSettings, Encoding, Evolution, Rotation, choices
+
+__all__ = [
+    "FLAG",
+    "InversionCircuit",
+    "build_inversion",
+    "filter_floor",
+    "rotation_angles",
+    "flag_rotation_circuit",
+    "eigenvalue_filter",
+    "postselected_system_amplitudes",
+    "flag_probability",
+    "statevector_array",
+]
+
+FLAG = "flag"
+
+# λ̃ at or below this fraction of the clock's largest |λ̃| counts as ≤ 0: the walk's middle bin
+# decodes to α·cos(π/2) ≈ 6e-17·α, not 0.
+_ZERO_RTOL = 1e-12
+
+
+@dataclass(frozen=True)
+class InversionCircuit:
+    """An inversion circuit and the constants that turn its probabilities back into numbers.
+
+    ``scale`` is C (smallest admitted λ̃). ``clock_eigenvalues[k]`` is λ̃ decoded from clock value k;
+    ``admitted[k]`` whether it is rotated; ``flag_amplitudes[k]`` = g(λ̃_k) (0 if filtered).
+    ``effective_condition_number`` is the spread phase estimation must resolve: α/λ_lo for the
+    walk (its clock covers [−α, α]), λ_hi/λ_lo for ``exact``/``trotter``. ``n_oracle_calls``
+    counts controlled applications of e^{iAt}, of one product-formula sequence for e^{iAt}, or
+    of W, including the uncompute; ``n_pauli_terms`` the Pauli strings the oracle is built from
+    (0 for ``exact`` and the dilation walk).
+    """
+
+    circuit: QuantumCircuit
+    rotation: Rotation
+    scale: float
+    alpha: float | None
+    evolution_time: float | None
+    clock_eigenvalues: np.ndarray
+    admitted: np.ndarray
+    flag_amplitudes: np.ndarray
+    floor: float
+    n_filtered: int
+    effective_condition_number: float
+    settings: CircuitSettings
+    form: Form
+    uncomputed: bool
+    bounds: tuple[float, float]
+    n_system_qubits: int
+    n_block_qubits: int
+    n_oracle_calls: int
+    block_encoding: BlockEncoding | None = None
+    n_pauli_terms: int = 0
+
+    @property
+    def clock_qubits(self) -> int:
+        return self.settings.clock_qubits
+
+
+def _check_inputs(A, settings: CircuitSettings, rotation, bounds, form) -> tuple[np.ndarray, float, float]:
+    a = check_matrix(A)
+    if rotation not in choices(Rotation):
+        raise QgpError(f"unknown rotation {rotation!r}; choose one of {choices(Rotation)}")
+    if form not in ("gate", "simulation"):
+        raise QgpError(f"form must be 'gate' or 'simulation', got {form!r}")
+    c = settings.clock_qubits
+    if not isinstance(c, (int, np.integer)) or c < 1:
+        raise QgpError(f"[circuit] clock_qubits must be an integer ≥ 1, got {c!r}")
+    if settings.evolution not in choices(Evolution):
+        raise QgpError(
+            f"unknown [circuit] evolution {settings.evolution!r}; choose one of {choices(Evolution)}"
+        )
+    if settings.evolution == "walk" and settings.encoding not in choices(Encoding):
+        raise QgpError(
+            f"the walk oracle needs a block encoding, got [circuit] encoding = {settings.encoding!r}; "
+            f"choose one of {choices(Encoding)}"
+        )
+    if settings.evolution == "trotter":
+        if not isinstance(settings.trotter_steps, (int, np.integer)) or settings.trotter_steps < 1:
+            raise QgpError(
+                f"[circuit] trotter_steps must be an integer ≥ 1, got {settings.trotter_steps!r}"
+            )
+        if settings.trotter_order not in (1, 2):
+            raise QgpError(f"[circuit] trotter_order must be 1 or 2, got {settings.trotter_order!r}")
+    try:
+        lo, hi = (float(x) for x in bounds)
+    except (TypeError, ValueError):
+        raise QgpError(f"bounds must be a pair (λ_lo, λ_hi), got {bounds!r}") from None
+    if not (np.isfinite(lo) and np.isfinite(hi) and 0 < lo <= hi):
+        raise QgpError(
+            f"eigenvalue bounds must satisfy 0 < λ_lo ≤ λ_hi, got ({lo!r}, {hi!r}); "
+            "A must be positive definite (add noise variance σ²)"
+        )
+    ff = settings.filter_floor
+    if ff is not None and not (np.isfinite(ff) and ff > 0):
+        raise QgpError(f"[circuit] filter_floor must be a positive number, got {ff!r}")
+    return a, lo, hi
+
+
+def filter_floor(oracle: PhaseOracle, lambda_lo: float, override: float | None = None) -> float:
+    """max(λ_lo − one clock bin, λ_lo/2), or ``override`` when given (see module docstring)."""
+    if override is not None:
+        return float(override)
+    n = 2**oracle.clock_qubits
+    if oracle.kind == "walk":
+        alpha = oracle.alpha
+        bin_width = (2 * np.pi / n) * np.sqrt(max(alpha**2 - lambda_lo**2, 0.0))
+    else:
+        bin_width = 2 * np.pi / (oracle.evolution_time * n)
+    return max(lambda_lo - bin_width, lambda_lo / 2)
+
+
+def rotation_angles(amplitudes: np.ndarray) -> np.ndarray:
+    """RY angles θ_k = 2·arcsin(g_k), so RY(θ_k)|0⟩ has amplitude g_k on |1⟩."""
+    return 2 * np.arcsin(np.clip(amplitudes, 0.0, 1.0))
+
+
+def flag_rotation_circuit(angles: np.ndarray, form: Form = "gate") -> QuantumCircuit:
+    """The uniformly controlled RY(θ_k) on ``flag`` over clock values k, on registers clock, flag.
+
+    ``"gate"``: a `UCRYGate` (multiplexed RY). ``"simulation"``: the identity
+    RY(θ) = S·H·RZ(θ)·H·S† (H RZ H = RX, S X S† = Y) turns it into S† and H on the flag, the
+    diagonal diag_k(RZ(θ_k)) on clock ⊗ flag, then H and S; same operator, global phase included.
+    """
+    angles = np.asarray(angles, dtype=float)
+    c = int(np.log2(angles.size))
+    clock = QuantumRegister(c, CLOCK)
+    flag = QuantumRegister(1, FLAG)
+    qc = QuantumCircuit(clock, flag, name="flag-rotation")
+    if form == "gate":
+        qc.append(UCRYGate([float(x) for x in angles]), [flag[0], *clock])
+        return qc
+    # Index of the diagonal on [clock…, flag] is k + 2^c·f: RZ(θ) = diag(e^{−iθ/2}, e^{iθ/2}).
+    diag = np.concatenate((np.exp(-0.5j * angles), np.exp(0.5j * angles)))
+    qc.sdg(flag[0])
+    qc.h(flag[0])
+    qc.append(DiagonalGate(list(diag)), [*clock, flag[0]])
+    qc.h(flag[0])
+    qc.s(flag[0])
+    return qc
+
+
+def build_inversion(
+    A,
+    settings: CircuitSettings,
+    rotation: Rotation,
+    bounds: tuple[float, float],
+    *,
+    prepare: np.ndarray | None = None,
+    uncompute: bool | None = None,
+    form: Form = "gate",
+) -> InversionCircuit:
+    """Build the inversion circuit for A with the a-priori eigenvalue bounds (λ_lo, λ_hi).
+
+    A is never eigensolved here: t, the floor and C come from the bounds and the clock grid
+    (the dilation encoding diagonalises A only to build √(I − A²/α²)). ``prepare`` prepends the
+    amplitude encoding of that vector on ``system``. ``uncompute`` defaults to True for
+    ``inverse`` and False for ``inverse_sqrt`` (whose answer, P(flag = 1), needs no uncompute).
+    """
+    a, lo, hi = _check_inputs(A, settings, rotation, bounds, form)
+    m = a.shape[0].bit_length() - 1
+    if uncompute is None:
+        uncompute = rotation == "inverse"
+    encode = None
+    if prepare is not None:
+        encode = amplitude_encoding(prepare)
+        if encode.num_qubits != m:
+            raise QgpError(
+                f"the vector to prepare has {2**encode.num_qubits} entries but A is {2**m}×{2**m}; "
+                "pad it the same way as A"
+            )
+    be = block_encoding(a, settings.encoding) if settings.evolution == "walk" else None
+    oracle = phase_oracle(a, settings, hi, form=form, block_encoding=be)
+
+    lam = oracle.clock_eigenvalues()
+    floor = filter_floor(oracle, lo, settings.filter_floor)
+    positive = lam > _ZERO_RTOL * float(np.max(np.abs(lam)))
+    admitted = positive & (lam >= floor)
+    if not np.any(admitted):
+        raise QgpError(
+            f"no clock value decodes to an eigenvalue at or above the filter floor {floor:.4g}; "
+            "raise [circuit] clock_qubits or lower [circuit] filter_floor"
+        )
+    scale = float(np.min(lam[admitted]))
+    ratio = np.zeros_like(lam)
+    ratio[admitted] = scale / lam[admitted]
+    amplitudes = ratio if rotation == "inverse" else np.sqrt(ratio)
+
+    c = settings.clock_qubits
+    system = QuantumRegister(m, SYSTEM)
+    clock = QuantumRegister(c, CLOCK)
+    flag = QuantumRegister(1, FLAG)
+    regs = [system, clock, flag]
+    block = []
+    if oracle.n_block_qubits:
+        block = QuantumRegister(oracle.n_block_qubits, BLOCK)
+        regs.append(block)
+    qc = QuantumCircuit(*regs, name=f"inversion-{rotation}")
+    # copy=False: the pieces are fresh, and deep-copying nested controlled gates dominated the
+    # build time of large LCU walks.
+    if encode is not None:
+        qc.compose(encode, qubits=system[:], inplace=True, copy=False)
+    qpe_qubits = [*system, *clock, *block]
+    qc.compose(phase_estimation_circuit(oracle), qubits=qpe_qubits, inplace=True, copy=False)
+    rotation_circuit = flag_rotation_circuit(rotation_angles(amplitudes), form)
+    qc.compose(rotation_circuit, qubits=[*clock, flag[0]], inplace=True, copy=False)
+    if uncompute:
+        qc.compose(inverse_phase_estimation_circuit(oracle), qubits=qpe_qubits, inplace=True, copy=False)
+
+    if settings.evolution == "walk":
+        kappa = oracle.alpha / lo
+    else:
+        kappa = hi / lo
+    return InversionCircuit(
+        circuit=qc,
+        rotation=rotation,
+        scale=scale,
+        alpha=oracle.alpha,
+        evolution_time=oracle.evolution_time,
+        clock_eigenvalues=lam,
+        admitted=admitted,
+        flag_amplitudes=amplitudes,
+        floor=float(floor),
+        n_filtered=int(np.count_nonzero(~admitted)),
+        effective_condition_number=float(kappa),
+        settings=settings,
+        form=form,
+        uncomputed=bool(uncompute),
+        bounds=(lo, hi),
+        n_system_qubits=m,
+        n_block_qubits=oracle.n_block_qubits,
+        n_oracle_calls=oracle.n_calls * (2 if uncompute else 1),
+        block_encoding=be,
+        n_pauli_terms=oracle.n_pauli_terms,
+    )
+
+
+def eigenvalue_filter(inv: InversionCircuit) -> np.ndarray:
+    """g(λ̃_k) for every clock value k: the flag = 1 amplitude the rotation writes (0 if filtered)."""
+    return inv.flag_amplitudes.copy()
+
+
+def statevector_array(statevector, inv: InversionCircuit) -> np.ndarray:
+    """The statevector as an array indexed [block, flag, clock, system] (see module docstring)."""
+    data = np.asarray(getattr(statevector, "data", statevector)).reshape(-1)
+    m, c, b = inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits
+    if data.size != 2 ** (m + c + 1 + b):
+        raise QgpError(
+            f"statevector has {data.size} entries; this circuit has {m + c + 1 + b} qubits "
+            f"(2^{m + c + 1 + b} entries)"
+        )
+    return data.reshape(2**b, 2, 2**c, 2**m)
+
+
+def postselected_system_amplitudes(statevector, inv: InversionCircuit) -> np.ndarray:
+    """Amplitudes of ``system`` on flag = 1, clock = 0, block = 0 (unnormalised).
+
+    For ``inverse`` and normalised input b this is ≈ C·A⁻¹b; its squared norm is the success
+    probability.
+    """
+    if not inv.uncomputed:
+        raise QgpError(
+            "phase estimation was not uncomputed, so clock = 0 does not select the answer; "
+            "build with uncompute=True or read flag_probability instead"
+        )
+    return statevector_array(statevector, inv)[0, 1, 0, :].copy()
+
+
+def flag_probability(statevector, inv: InversionCircuit) -> float:
+    """P(flag = 1), summed over every other register."""
+    arr = statevector_array(statevector, inv)
+    return float(np.sum(np.abs(arr[:, 1, :, :]) ** 2))
