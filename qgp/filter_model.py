@@ -1,0 +1,64 @@
+"""Closed-form model of the ideal inversion circuit: what it applies to each eigenvalue of A.
+
+Phase estimation with c clock qubits maps an eigenvector with eigenphase φ to clock value k with
+amplitude a_k(φ) = 2^{-c} Σ_j e^{2πij(φ − k/2^c)}, so |a_k|² = sin²(π2^cδ)/(2^{2c} sin²(πδ)),
+δ = φ − k/2^c (the Fejér kernel; Nielsen & Chuang §5.2.1). The rotation puts g(λ̃_k) on the flag,
+and uncomputation projects back onto clock 0, so for an eigenvector of A with eigenvalue λ
+
+    inverse circuit:      post-selected amplitude  f(λ) = Σ_k |a_k(φ(λ))|² g(λ̃_k),  g = C/λ̃
+    inverse_sqrt circuit: flag probability         h(λ) = Σ_k |a_k(φ(λ))|² g(λ̃_k)², g = √(C′/λ̃)
+
+(g = 0 on filtered clock values). The circuit therefore applies Ã⁻¹ = V diag(f/C) Vᵀ. This is exact
+for the exact oracle, φ = λt/2π; for the qubitization walk the two eigenphases ±arccos(λ/α)/2π
+each carry half of the weight and, because λ̃_k = α cos(2πk/2^c) is symmetric under k → 2^c − k,
+give the same sum, so φ = arccos(λ/α)/2π serves for both (Low & Chuang 2019).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["qpe_weights", "clock_phases", "rotation_amplitudes", "filter_response", "model_operator"]
+
+
+def qpe_weights(phase, clock_qubits: int) -> np.ndarray:
+    """|a_k(φ)|² for every φ in ``phase`` (rows) and clock value k (columns); rows sum to 1."""
+    N = 1 << clock_qubits
+    phase = np.atleast_1d(np.asarray(phase, dtype=float))
+    delta = phase[:, None] - np.arange(N)[None, :] / N
+    s = np.sin(np.pi * delta)
+    exact = np.abs(s) < 1e-12  # δ an integer: the phase sits on clock value k
+    w = np.ones_like(delta)
+    w[~exact] = (np.sin(np.pi * N * delta[~exact]) / (N * s[~exact])) ** 2
+    return w
+
+
+def clock_phases(inv, eigenvalues) -> np.ndarray:
+    """Eigenphase φ(λ) in [0, 1) that phase estimation sees for each eigenvalue of A."""
+    lam = np.asarray(eigenvalues, dtype=float)
+    if inv.alpha is not None and inv.evolution_time is None:
+        return np.arccos(np.clip(lam / inv.alpha, -1.0, 1.0)) / (2 * np.pi)
+    return np.mod(lam * inv.evolution_time / (2 * np.pi), 1.0)
+
+
+def rotation_amplitudes(inv) -> np.ndarray:
+    """g(λ̃_k) of the circuit's rotation for every clock value (0 where filtered)."""
+    lam = np.asarray(inv.clock_eigenvalues, dtype=float)
+    g = np.zeros_like(lam)
+    ok = np.asarray(inv.admitted, dtype=bool)
+    ratio = inv.scale / lam[ok]
+    g[ok] = ratio if inv.rotation == "inverse" else np.sqrt(ratio)
+    return g
+
+
+def filter_response(inv, eigenvalues) -> np.ndarray:
+    """f(λ) (``inverse``) or h(λ) (``inverse_sqrt``) of the module docstring, per eigenvalue."""
+    w = qpe_weights(clock_phases(inv, eigenvalues), inv.settings.clock_qubits)
+    g = rotation_amplitudes(inv)
+    return w @ (g if inv.rotation == "inverse" else g**2)
+
+
+def model_operator(inv, A: np.ndarray) -> np.ndarray:
+    """V diag(response) Vᵀ: C·Ã⁻¹ for ``inverse``, the flag-probability matrix M for ``inverse_sqrt``."""
+    lam, V = np.linalg.eigh(A)
+    return (V * filter_response(inv, lam)) @ V.T

@@ -1,0 +1,445 @@
+"""Quantum GP inference end to end: a `Problem` in, a frozen `InferenceResult` out.
+
+    result = infer(problem, CircuitSettings(...), ReadoutSettings(...))
+
+builds the ``inverse`` and ``inverse_sqrt`` circuits for the padded A (given only A's a-priori
+eigenvalue bounds), simulates them (amortised: one reference-register run each; per-point: one
+full circuit per test point), turns outcome probabilities — exact, or sampled with ``shots`` —
+into predictive means and latent variances (qgp.estimators), and sets them beside the exact GP
+with an error budget that adds one imperfection at a time.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field, replace
+
+import numpy as np
+
+from .errors import QgpError
+from .estimators import (
+    CircuitOperators,
+    hadamard_probabilities,
+    operators_from_reference_run,
+    per_point_counts,
+    per_point_hadamard,
+    per_point_probabilities,
+    sample_hadamard,
+    sample_variance,
+    variance_probabilities,
+)
+from .filter_model import model_operator
+from .gp import count_nonpositive, nlpd, rmse
+from .inversion import InversionCircuit, build_inversion, postselected_system_amplitudes
+from .phase_estimation import phase_estimation_circuit, phase_oracle
+from .problem import Problem
+from .settings import CircuitSettings, ReadoutSettings
+from .simulate import default_memory_cap, require_memory, run_statevectors, statevector_bytes
+from .system import eigenvalue_bounds
+
+__all__ = ["InferenceResult", "ShotEstimates", "infer", "shot_estimates", "planned_qubits", "SIMULATED_FORM"]
+
+#: The circuit form every simulation uses (fused controlled powers, diagonal rotation); the gate
+#: form is the same operator (tests/test_inversion.py) and is what resources and exports count.
+SIMULATED_FORM = "simulation"
+
+Progress = Callable[[str], None]
+
+
+def _stderr_progress(msg: str) -> None:
+    print(f"qgp: {msg}", file=sys.stderr, flush=True)
+
+
+@dataclass(frozen=True)
+class InferenceResult:
+    """Both answers at every test point, their errors, and what the circuits cost.
+
+    Variances are latent (of f); add ``noise_variance`` for the predictive variance of y.
+    ``*_se`` are None without shots. ``p0, p1`` are the Hadamard-test probabilities of landing in
+    Π with probe 0/1 and ``p_flag`` the variance circuit's P(flag = 1), all exact (shots = 0).
+    """
+
+    problem: Problem
+    circuit: CircuitSettings
+    readout: ReadoutSettings
+    inverse: InversionCircuit
+    inverse_sqrt: InversionCircuit
+    mean_exact: np.ndarray
+    variance_exact: np.ndarray
+    mean_quantum: np.ndarray
+    variance_quantum: np.ndarray
+    variance_quantum_hadamard: np.ndarray
+    mean_quantum_se: np.ndarray | None
+    variance_quantum_se: np.ndarray | None
+    p0: np.ndarray
+    p1: np.ndarray
+    p_flag: np.ndarray
+    success_probability_inversion: float
+    post_selection_failures: int | None
+    error_budget: dict
+    shots_needed: dict
+    filter_model_max_abs_difference: float | None
+    operators: CircuitOperators | None
+    elapsed_seconds: float
+    timings: dict = field(default_factory=dict)
+
+    @property
+    def qubits(self) -> dict[str, int]:
+        q = {
+            "system": self.inverse.n_system_qubits,
+            "clock": self.circuit.clock_qubits,
+            "flag": 1,
+            "block": self.inverse.n_block_qubits,
+        }
+        q["total"] = sum(q.values())
+        return q
+
+    @property
+    def n_negative_variances(self) -> int:
+        return count_nonpositive(self.variance_quantum)
+
+    def summary(self) -> dict:
+        """The JSON-ready summary (`summary.json` keys; see docs)."""
+        p = self.problem
+        d = p.diagnostics
+        q = self.qubits
+        succ = self.p0 + self.p1
+        out = {
+            "n_train": p.n_train,
+            "n_test": p.n_test,
+            "system_qubits": q["system"],
+            "clock_qubits": q["clock"],
+            "ancilla_qubits": q["flag"] + q["block"],
+            "block_qubits": q["block"],
+            "total_qubits": q["total"],
+            "condition_number": d.condition_number,
+            "condition_number_bound": d.condition_number_bound,
+            "effective_condition_number": self.inverse.effective_condition_number,
+            "sparsity": d.sparsity,
+            "noise_variance": p.noise_variance,
+            "noise_source": p.noise_source,
+            "encoding": self.circuit.encoding if self.circuit.evolution == "walk" else None,
+            "evolution": self.circuit.evolution,
+            "shots": self.readout.shots,
+            "seed": self.readout.seed,
+            "strategy": self.readout.strategy,
+            "simulated_form": SIMULATED_FORM,
+            "prior_mean": p.y_offset,
+            "prior_mean_note": (
+                "the training mean of the target was subtracted before inference and added back to every mean"
+                if p.center
+                else "no prior mean was subtracted ([data] center = false)"
+            ),
+            "variance_kind": "latent (of f); add noise_variance for the predictive variance of y",
+            "mean_max_abs_error": _max_abs(self.mean_quantum - self.mean_exact),
+            "variance_max_abs_error": _max_abs(self.variance_quantum - self.variance_exact),
+            "variance_hadamard_max_abs_error": _max_abs(self.variance_quantum_hadamard - self.variance_exact),
+            "mean_rel_rmse": _rel_rmse(self.mean_quantum - self.mean_exact, self.mean_exact - p.y_offset),
+            "variance_rel_rmse": _rel_rmse(self.variance_quantum - self.variance_exact, self.variance_exact),
+            "negative_variances": self.n_negative_variances,
+            "success_probability_min": float(np.min(succ)),
+            "success_probability_mean": float(np.mean(succ)),
+            "success_probability_inversion": self.success_probability_inversion,
+            "success_probability_variance_min": float(np.min(self.p_flag)),
+            "success_probability_variance_mean": float(np.mean(self.p_flag)),
+            "post_selection_failures": self.post_selection_failures,
+            "scale_inverse": self.inverse.scale,
+            "scale_inverse_sqrt": self.inverse_sqrt.scale,
+            "alpha": self.inverse.alpha,
+            "evolution_time": self.inverse.evolution_time,
+            "filter_floor": self.inverse.floor,
+            "filtered_clock_values": self.inverse.n_filtered,
+            "filter_model_max_abs_difference": self.filter_model_max_abs_difference,
+            "error_budget": self.error_budget,
+            "shots_needed": self.shots_needed,
+            "elapsed_seconds": self.elapsed_seconds,
+            "timings": self.timings,
+        }
+        if p.y_test is not None:
+            noise = p.noise_variance
+            out["test_rmse"] = {"exact": rmse(p.y_test, self.mean_exact), "quantum": rmse(p.y_test, self.mean_quantum)}
+            out["test_nlpd"] = {
+                "exact": _none_if_nan(nlpd(p.y_test, self.mean_exact, self.variance_exact + noise)),
+                "quantum": _none_if_nan(nlpd(p.y_test, self.mean_quantum, self.variance_quantum + noise)),
+                "note": "NLPD of y with predictive variance = latent + noise; null when any variance is ≤ 0 "
+                "(never clipped; see negative_variances)",
+            }
+        return out
+
+
+def _none_if_nan(x: float) -> float | None:
+    return None if not math.isfinite(x) else float(x)
+
+
+def _max_abs(x: np.ndarray) -> float:
+    return float(np.max(np.abs(x)))
+
+
+def _rel_rmse(err: np.ndarray, ref: np.ndarray) -> float:
+    """RMSE relative to the RMS of the reference (the centred mean: what the circuit estimates)."""
+    scale = math.sqrt(float(np.mean(ref**2)))
+    return math.sqrt(float(np.mean(err**2))) / scale if scale > 0 else math.inf
+
+
+def _block_qubits(problem: Problem, circuit: CircuitSettings) -> int:
+    if circuit.evolution != "walk":
+        return 0
+    if circuit.encoding == "dilation":
+        return 1
+    from .encoding import pauli_decomposition
+
+    return max(1, math.ceil(math.log2(len(pauli_decomposition(problem.A_padded)))))
+
+
+def planned_qubits(problem: Problem, circuit: CircuitSettings, readout: ReadoutSettings) -> int:
+    """Largest simulated width: the inversion plus a reference register (amortised) or a probe."""
+    base = problem.system_qubits + circuit.clock_qubits + 1 + _block_qubits(problem, circuit)
+    return base + (problem.system_qubits if readout.strategy == "amortised" else 1)
+
+
+def _unit_columns(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Columns scaled to unit norm, with their norms; a zero column becomes e₀ (its answer is 0)."""
+    norms = np.linalg.norm(K, axis=0)
+    out = np.zeros_like(K)
+    ok = norms > 0
+    out[:, ok] = K[:, ok] / norms[ok]
+    out[0, ~ok] = 1.0
+    return out, norms
+
+
+def _unit_inputs(problem: Problem):
+    """(ŷ, ‖y‖, k̂ columns, ‖k*‖ per test point): the padded, normalised circuit inputs."""
+    yhat, y_norm = _unit_columns(problem.padded(problem.y_centered)[:, None])
+    khat, k_norms = _unit_columns(problem.padded(problem.k_star))
+    return yhat[:, 0], float(y_norm[0]), khat, k_norms
+
+
+@dataclass(frozen=True)
+class ShotEstimates:
+    """Estimates from counts: D̂ = (n₀ − n₁)/N with Var(D̂) = (P₀ + P₁ − D²)/N (one multinomial),
+    and P̂ = n_flag/N with Var = P(1 − P)/N; plug-in standard errors."""
+
+    mean: np.ndarray
+    variance: np.ndarray
+    mean_se: np.ndarray
+    variance_se: np.ndarray
+
+
+def _shot_estimates(problem, inv, inv_sqrt, n0, n1, nf, shots: int) -> ShotEstimates:
+    _, y_norm, _, k_norms = _unit_inputs(problem)
+    hp0, hp1, hpf = n0 / shots, n1 / shots, nf / shots
+    nan = np.full(problem.n_test, np.nan)
+    mean, var, _ = _estimates(problem, hp0, hp1, hpf, nan, y_norm, k_norms, inv, inv_sqrt)
+    d_hat = hp0 - hp1
+    mean_se = y_norm * k_norms / inv.scale * np.sqrt(np.clip(hp0 + hp1 - d_hat**2, 0.0, None) / shots)
+    var_se = k_norms**2 / inv_sqrt.scale * np.sqrt(hpf * (1 - hpf) / shots)
+    return ShotEstimates(mean=mean, variance=var, mean_se=mean_se, variance_se=var_se)
+
+
+def shot_estimates(result: "InferenceResult", n0, n1, nf, shots: int) -> ShotEstimates:
+    """Mean and latent variance with standard errors from counts n₀Π, n₁Π and n_flag of N shots."""
+    return _shot_estimates(result.problem, result.inverse, result.inverse_sqrt, np.asarray(n0), np.asarray(n1), np.asarray(nf), shots)
+
+
+def _estimates(problem, p0, p1, pf, pf_had, y_norm, k_norms, inv, inv_sqrt):
+    d = p0 - p1
+    mean = problem.y_offset + y_norm * k_norms * d / inv.scale
+    quad = k_norms**2 * pf / inv_sqrt.scale
+    quad_had = k_norms**2 * pf_had / inv.scale
+    return mean, problem.k_star_star - quad, problem.k_star_star - quad_had
+
+
+def _budget_stage(mean, var, mean_ref, var_ref) -> dict:
+    return {
+        "mean_max_abs_error": _max_abs(mean - mean_ref),
+        "mean_rmse": math.sqrt(float(np.mean((mean - mean_ref) ** 2))),
+        "variance_max_abs_error": _max_abs(var - var_ref),
+        "variance_rmse": math.sqrt(float(np.mean((var - var_ref) ** 2))),
+    }
+
+
+def _error_budget(stages: list[tuple[str, dict]]) -> dict:
+    """Errors after each added imperfection and the increments, which add up to the total."""
+    out = {"order": [name for name, _ in stages], "stages": {}, "increments": {}}
+    prev = None
+    for name, metrics in stages:
+        out["stages"][name] = metrics
+        out["increments"][name] = {k: v - (prev[k] if prev else 0.0) for k, v in metrics.items()}
+        prev = metrics
+    out["total"] = prev
+    out["note"] = (
+        "ideal 1/λ on the exact spectrum (the exact GP, error 0) → phase-estimation resolution and filtering "
+        "with the exact oracle (closed-form filter model) → the chosen oracle (circuit, exact probabilities) "
+        "→ shot noise; each increment is the change in the metric when that imperfection is added"
+    )
+    return out
+
+
+def _shots_needed(problem, p0, p1, pf, y_norm, k_norms, inv, inv_sqrt, mean_exact, var_exact) -> dict:
+    """Shots for a standard error of 1% of max|μ − prior mean| (mean) and of max prior variance.
+
+    Plain sampling: N = scale²·Var/ε² (~1/ε²). Amplitude estimation (Brassard, Høyer, Mosca & Tapp
+    2002, Thm 12: error ≈ π√(p(1−p))/M after M oracle calls) needs M ≈ scale·π·Σ√(p(1−p))/ε
+    (~1/ε) — an estimate, not a simulation.
+    """
+    eps_mean = 0.01 * _max_abs(mean_exact - problem.y_offset)
+    scale_m = y_norm * k_norms / inv.scale
+    d = p0 - p1
+    var_d = np.clip(p0 + p1 - d**2, 0.0, None)
+    eps_var = 0.01 * float(np.max(problem.k_star_star))
+    scale_v = k_norms**2 / inv_sqrt.scale
+    plain_mean = float(np.max(scale_m**2 * var_d)) / eps_mean**2 if eps_mean > 0 else None
+    ae_mean = (
+        float(np.max(scale_m * math.pi * (np.sqrt(p0 * (1 - p0)) + np.sqrt(p1 * (1 - p1))))) / eps_mean
+        if eps_mean > 0
+        else None
+    )
+    plain_var = float(np.max(scale_v**2 * pf * (1 - pf))) / eps_var**2
+    ae_var = float(np.max(scale_v * math.pi * np.sqrt(pf * (1 - pf)))) / eps_var
+    return {
+        "mean_target_se": eps_mean,
+        "mean_shots_plain": _ceil(plain_mean),
+        "mean_oracle_calls_amplitude_estimation": _ceil(ae_mean),
+        "variance_target_se": eps_var,
+        "variance_shots_plain": _ceil(plain_var),
+        "variance_oracle_calls_amplitude_estimation": _ceil(ae_var),
+        "note": "per test point, worst case over test points; mean target = 1% of max|μ − prior mean|, "
+        "variance target = 1% of the largest prior variance k(x*, x*); amplitude-estimation counts are "
+        "estimates (Brassard et al. 2002), not simulated",
+    }
+
+
+def _ceil(x):
+    return None if x is None or not math.isfinite(x) else int(math.ceil(x))
+
+
+def _qpe_body(A, circuit: CircuitSettings, bounds, inv: InversionCircuit):
+    """The phase-estimation body of ``inv`` (same oracle and block encoding), for per-point circuits."""
+    oracle = phase_oracle(A, circuit, bounds[1], form=SIMULATED_FORM, block_encoding=inv.block_encoding)
+    return phase_estimation_circuit(oracle)
+
+
+def infer(
+    problem: Problem,
+    circuit: CircuitSettings = CircuitSettings(),
+    readout: ReadoutSettings = ReadoutSettings(),
+    *,
+    progress: Progress | None = _stderr_progress,
+) -> InferenceResult:
+    """Estimate the predictive mean and latent variance at ``problem.X_test`` with the circuits."""
+    say = progress or (lambda msg: None)
+    t_start = time.perf_counter()
+    timings: dict[str, float] = {}
+    cap = readout.memory_cap_bytes if readout.memory_cap_bytes is not None else default_memory_cap()
+    width = planned_qubits(problem, circuit, readout)
+    require_memory(statevector_bytes(width), f"the {readout.strategy} simulation on {width} qubits", cap)
+
+    A = problem.A_padded
+    bounds = eigenvalue_bounds(A, problem.noise_variance)
+    t0 = time.perf_counter()
+    say(f"building circuits: {circuit.evolution} oracle, {circuit.clock_qubits} clock qubits, {width} qubits simulated")
+    inv = build_inversion(A, circuit, "inverse", bounds, form=SIMULATED_FORM)
+    inv_sqrt = build_inversion(A, circuit, "inverse_sqrt", bounds, form=SIMULATED_FORM)
+    timings["build"] = time.perf_counter() - t0
+
+    yhat, y_norm, khat, k_norms = _unit_inputs(problem)
+
+    t0 = time.perf_counter()
+    operators = None
+    if readout.strategy == "amortised":
+        say("simulating the inversion once with a reference register (amortised)")
+        operators = operators_from_reference_run(inv, inv_sqrt, cap=cap)
+        v = operators.B @ yhat
+        p0, p1 = hadamard_probabilities(v, khat)
+        pf = variance_probabilities(operators.M, khat)
+        had = np.real(np.einsum("it,ij,jt->t", khat, operators.B, khat))
+        success_inv = float(np.sum(np.abs(v) ** 2))
+    else:
+        say(f"simulating {3 * problem.n_test + 1} per-point circuits")
+        qpe = _qpe_body(A, circuit, bounds, inv)
+        p0, p1, pf = per_point_probabilities(qpe, inv, inv_sqrt.circuit, inv_sqrt, yhat, khat, cap=cap)
+        h0, h1 = per_point_hadamard(qpe, inv, khat, khat, cap=cap)
+        had = h0 - h1
+        prep = build_inversion(A, circuit, "inverse", bounds, prepare=yhat, form=SIMULATED_FORM)
+        sv = run_statevectors([prep.circuit], cap=cap)[0]
+        success_inv = float(np.sum(np.abs(postselected_system_amplitudes(sv, prep)) ** 2))
+    timings["simulate"] = time.perf_counter() - t0
+
+    t0 = time.perf_counter()
+    exact = problem.exact.predict(problem.X_test)
+    mean_exact, var_exact = exact.mean, exact.variance_latent
+    mean_q, var_q, var_had = _estimates(problem, p0, p1, pf, had, y_norm, k_norms, inv, inv_sqrt)
+
+    mean_se = var_se = None
+    failures = None
+    mean_out, var_out = mean_q, var_q
+    if readout.shots > 0:
+        N = readout.shots
+        say(f"sampling {N} shots per test point (seed {readout.seed})")
+        if readout.strategy == "amortised":
+            rng = np.random.default_rng(readout.seed)
+            n0, n1 = sample_hadamard(p0, p1, N, rng)
+            nf = sample_variance(pf, N, rng)
+        else:
+            qpe = _qpe_body(A, circuit, bounds, inv)
+            n0, n1, nf = per_point_counts(qpe, inv, inv_sqrt.circuit, yhat, khat, N, readout.seed, cap=cap)
+        est = _shot_estimates(problem, inv, inv_sqrt, n0, n1, nf, N)
+        mean_out, var_out, mean_se, var_se = est.mean, est.variance, est.mean_se, est.variance_se
+        failures = int(np.sum(N - n0 - n1))
+
+    # Error budget: exact GP → exact-oracle phase estimation and filtering (model) → chosen oracle → shots.
+    exact_settings = replace(circuit, evolution="exact", trotter_steps=1)
+    model_inv = build_inversion(A, exact_settings, "inverse", bounds, form=SIMULATED_FORM) if circuit.evolution != "exact" else inv
+    model_sqrt = (
+        build_inversion(A, exact_settings, "inverse_sqrt", bounds, form=SIMULATED_FORM) if circuit.evolution != "exact" else inv_sqrt
+    )
+    B_model = model_operator(model_inv, A)
+    M_model = model_operator(model_sqrt, A)
+    vm = B_model @ yhat
+    mp0, mp1 = hadamard_probabilities(vm, khat)
+    mpf = variance_probabilities(M_model, khat)
+    mean_model, var_model, _ = _estimates(problem, mp0, mp1, mpf, had, y_norm, k_norms, model_inv, model_sqrt)
+    stages = [
+        ("phase_estimation_and_filter", _budget_stage(mean_model, var_model, mean_exact, var_exact)),
+        ("oracle", _budget_stage(mean_q, var_q, mean_exact, var_exact)),
+    ]
+    if readout.shots > 0:
+        stages.append(("shots", _budget_stage(mean_out, var_out, mean_exact, var_exact)))
+    budget = _error_budget(stages)
+
+    model_diff = None
+    if circuit.evolution in ("exact", "walk") and operators is not None:
+        own_B = model_operator(inv, A)
+        own_M = model_operator(inv_sqrt, A)
+        model_diff = max(_max_abs(own_B - operators.B), _max_abs(own_M - operators.M))
+
+    needed = _shots_needed(problem, p0, p1, pf, y_norm, k_norms, inv, inv_sqrt, mean_exact, var_exact)
+    timings["post_process"] = time.perf_counter() - t0
+    return InferenceResult(
+        problem=problem,
+        circuit=circuit,
+        readout=readout,
+        inverse=inv,
+        inverse_sqrt=inv_sqrt,
+        mean_exact=mean_exact,
+        variance_exact=var_exact,
+        mean_quantum=mean_out,
+        variance_quantum=var_out,
+        variance_quantum_hadamard=var_had,
+        mean_quantum_se=mean_se,
+        variance_quantum_se=var_se,
+        p0=p0,
+        p1=p1,
+        p_flag=pf,
+        success_probability_inversion=success_inv,
+        post_selection_failures=failures,
+        error_budget=budget,
+        shots_needed=needed,
+        filter_model_max_abs_difference=model_diff,
+        operators=operators,
+        elapsed_seconds=time.perf_counter() - t_start,
+        timings=timings,
+    )
