@@ -13,5 +13,23 @@ except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0.1.0+source"
 
 from .errors import QgpError
+from .inference import InferenceResult, infer
+from .kernels import RBF, Matern32, Matern52, Tapered, Wendland
+from .problem import Problem, build_problem
+from .settings import CircuitSettings, ReadoutSettings
 
-__all__ = ["__version__", "QgpError"]
+__all__ = [
+    "__version__",
+    "QgpError",
+    "RBF",
+    "Matern32",
+    "Matern52",
+    "Wendland",
+    "Tapered",
+    "Problem",
+    "build_problem",
+    "CircuitSettings",
+    "ReadoutSettings",
+    "InferenceResult",
+    "infer",
+]

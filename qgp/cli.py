@@ -52,6 +52,68 @@ def build_parser() -> argparse.ArgumentParser:
     _config_arg(p)
     p.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
     p.set_defaults(handler=_cmd_inspect)
+
+    p = sub.add_parser(
+        "run",
+        help="estimate the predictive mean and variance with the circuits and compare with the exact GP",
+        description="Build and simulate the inversion circuits for a config and write predictions.csv, "
+        "summary.json and figures/ into --out.",
+    )
+    _config_arg(p)
+    p.add_argument("--out", type=Path, required=True, help="output folder (created; must not hold an earlier run)")
+    p.add_argument("--force", action="store_true", help="overwrite an earlier run in --out")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    p.set_defaults(handler=_cmd_run)
+
+    p = sub.add_parser(
+        "export",
+        help="write the inversion circuits as OpenQASM 3 with their resource counts",
+        description="Write inversion.qasm (state preparation of y then the 1/λ inversion), inversion_sqrt.qasm "
+        "(the 1/√λ circuit) and resources.json into --out, decomposed to the ['u', 'cx'] basis.",
+    )
+    _config_arg(p)
+    p.add_argument("--out", type=Path, required=True, help="output folder (created if missing)")
+    p.set_defaults(handler=_cmd_export)
+
+    p = sub.add_parser(
+        "demo",
+        help="run the bundled demo end to end and print a short table",
+        description="Run the bundled demo config (an invented ice-thickness transect) end to end.",
+    )
+    p.add_argument("--out", type=Path, default=Path("qgp-demo"), help="output folder (default: ./qgp-demo)")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    p.set_defaults(handler=_cmd_demo)
+
+    p = sub.add_parser(
+        "sweep",
+        help="run a grid of configs (a sweep file) into a resumable SQLite result store",
+        description="Run every point of a sweep file's grid and store each in --store as it finishes; "
+        "running the same command again skips finished points. --status STORE summarises a store.",
+    )
+    p.add_argument("sweep", nargs="?", type=Path, help="sweep file (TOML): base, [axes], [paired]")
+    p.add_argument("--store", type=Path, help="result store (SQLite; created if missing)")
+    p.add_argument("--workers", type=int, default=None, help="worker processes (default: the number of cores)")
+    p.add_argument(
+        "--cluster",
+        metavar="ADDRESS",
+        help="run on a Dask scheduler at ADDRESS (tcp://host:8786), or 'local' for a LocalCluster "
+        "(needs pip install 'qgp[cluster]')",
+    )
+    p.add_argument("--retry-failed", action="store_true", help="rerun points stored as failed")
+    p.add_argument("--status", type=Path, metavar="STORE", help="summarise a store (done, failed, pending) and exit")
+    p.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
+    p.set_defaults(handler=_cmd_sweep)
+
+    p = sub.add_parser(
+        "results",
+        help="export a sweep's result store as a tidy CSV table",
+        description="Write one row per done grid point (axes columns, then summary scalars), or with "
+        "--test-points one row per test point of each done grid point.",
+    )
+    p.add_argument("store", type=Path, help="result store written by qgp sweep")
+    p.add_argument("--csv", type=Path, required=True, help="output CSV file")
+    p.add_argument("--test-points", action="store_true", help="one row per test point instead of per grid point")
+    p.set_defaults(handler=_cmd_results)
     return parser
 
 
@@ -101,6 +163,96 @@ def _cmd_inspect(args) -> int:
     for a, b in rows:
         print(f"{a:<{width}}  {b}")
     print(f"\nnote: {info['caveat']}")
+    return 0
+
+
+def _run_to(cfg_path: Path, out: Path, *, force: bool, quiet: bool):
+    from .config import load_config
+    from .report import run_config
+
+    cfg = load_config(cfg_path)
+    return run_config(cfg, out, overwrite=force, quiet=quiet)
+
+
+def _cmd_run(args) -> int:
+    doc, out = _run_to(_resolve_config(args), args.out, force=args.force, quiet=args.quiet)
+    print(f"wrote {out / 'predictions.csv'}, {out / 'summary.json'} and {out / 'figures'}/")
+    print(f"mean max |error| {_fmt(doc['mean_max_abs_error'])}, variance max |error| {_fmt(doc['variance_max_abs_error'])}")
+    return 0
+
+
+def _cmd_export(args) -> int:
+    from .config import load_config
+    from .export import export_config
+
+    paths = export_config(load_config(_resolve_config(args)), args.out)
+    for path in paths:
+        print(f"wrote {path}")
+    return 0
+
+
+def _cmd_demo(args) -> int:
+    from .demo import demo_config_path
+
+    doc, out = _run_to(demo_config_path(), args.out, force=True, quiet=args.quiet)
+    rows = [
+        ("condition number κ", _fmt(doc["condition_number"])),
+        ("qubits (total)", f"{doc['total_qubits']} = system {doc['system_qubits']} + clock {doc['clock_qubits']} "
+         f"+ ancillas {doc['ancilla_qubits']}"),
+        ("circuit", f"{doc['evolution']} oracle, {doc['encoding'] or 'no'} encoding"),
+        ("mean: max |error|", f"{_fmt(doc['mean_max_abs_error'])} (relative RMSE {_fmt(doc['mean_rel_rmse'])})"),
+        ("variance: max |error|", _fmt(doc["variance_max_abs_error"])),
+        ("success probability", f"{_fmt(doc['success_probability_mean'])} (Hadamard test), "
+         f"{_fmt(doc['success_probability_inversion'])} (inversion alone)"),
+        ("files", str(out)),
+    ]
+    width = max(len(a) for a, _ in rows)
+    for a, b in rows:
+        print(f"{a:<{width}}  {b}")
+    print(f"\nnote: {doc['caveat']}")
+    return 0
+
+
+def _cmd_sweep(args) -> int:
+    from .sweeps import format_status, load_sweep, run_sweep, store_status
+
+    if args.status is not None:
+        if args.sweep is not None or args.store is not None:
+            raise QgpError("--status STORE summarises a store on its own; drop the sweep file and --store")
+        print(format_status(store_status(args.status)))
+        return 0
+    if args.sweep is None:
+        raise QgpError("no sweep file given; run `qgp sweep SWEEP.toml --store RESULTS.sqlite` (or --status STORE)")
+    if args.store is None:
+        raise QgpError("no --store given; name the result file, e.g. --store results.sqlite")
+    report = run_sweep(
+        load_sweep(args.sweep),
+        args.store,
+        workers=args.workers,
+        cluster=args.cluster,
+        retry_failed=args.retry_failed,
+        progress=not args.quiet,
+    )
+    print(
+        f"{report.store}: {report.grid_size} grid points, {report.store_done} done, {report.store_failed} failed, "
+        f"{report.store_pending} pending (this run: {report.done} done, {report.failed} failed, "
+        f"{report.skipped} skipped as already stored, {report.wall_seconds:.1f} s)"
+    )
+    if report.store_failed:
+        print(
+            f"qgp: {report.store_failed} point(s) failed; see `qgp sweep --status {report.store}` and rerun "
+            "them with --retry-failed",
+            file=sys.stderr,
+        )
+        return 1
+    return 0
+
+
+def _cmd_results(args) -> int:
+    from .sweeps import export_csv
+
+    n = export_csv(args.store, args.csv, test_points=args.test_points)
+    print(f"wrote {n} row(s) to {args.csv}")
     return 0
 
 
