@@ -93,7 +93,7 @@ class CircuitSettings:
     clock_qubits: int = 8
     encoding: Encoding = "dilation"
     evolution: Evolution = "walk"
-    trotter_steps: int = 1
+    trotter_steps: int = 4
     trotter_order: TrotterOrder = 2
     evolution_time: float | None = None
     filter_floor: float | None = None
