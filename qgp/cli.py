@@ -114,7 +114,23 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--csv", type=Path, required=True, help="output CSV file")
     p.add_argument("--test-points", action="store_true", help="one row per test point instead of per grid point")
     p.set_defaults(handler=_cmd_results)
+    p = sub.add_parser(
+        "figures",
+        help="draw the publication figures of a sweep's result store",
+        description="Draw every figure the store has data for (PDF, 300-dpi PNG, CSV of the plotted numbers, "
+        "caption) and say why the others were skipped.",
+    )
+    p.add_argument("store", type=Path, help="result store (SQLite) written by qgp sweep")
+    p.add_argument("--out", type=Path, required=True, help="output folder for the figures")
+    p.add_argument("--only", nargs="+", metavar="FIG", help="draw only these figures (fig1 … fig7)")
+    p.set_defaults(handler=_cmd_figures)
     return parser
+
+
+def _cmd_figures(args) -> int:
+    from .sweep_figures import figures_command
+
+    return figures_command(args.store, args.out, only=args.only)
 
 
 def _fmt(x) -> str:

@@ -1,0 +1,33 @@
+#!/usr/bin/env bash
+# Regenerate every published figure from scratch: run each sweep into its own result store, draw the
+# figures, and copy the plotted numbers (CSV) and captions into experiments/results/ for review.
+#
+#   bash experiments/run_all.sh [RUN_DIR]        # from the repository root; RUN_DIR defaults to runs/
+#
+# QGP_WORKERS sets the worker processes (default 2, the size these sweeps were planned for).
+# Stores and figures stay in RUN_DIR (not committed). Rerunning resumes: finished points are skipped.
+set -euo pipefail
+
+here="$(cd "$(dirname "${BASH_SOURCE[0]}")" && pwd)"
+run_dir="${1:-runs}"
+workers="${QGP_WORKERS:-2}"
+mkdir -p "$run_dir" "$here/results"
+
+figures=(
+  "fig1 fig1_error_vs_qubits"
+  "fig2 fig2_error_vs_condition"
+  "fig3 fig3_success_probability"
+  "fig4 fig4_noise_tradeoff"
+  "fig5 fig5_taper_sparsity"
+  "fig6 fig6_circuit_cost"
+  "fig7 fig7_scaling"
+)
+
+for entry in "${figures[@]}"; do
+  read -r sweep name <<<"$entry"
+  start=$SECONDS
+  qgp sweep "$here/$sweep.toml" --store "$run_dir/$sweep.sqlite" --workers "$workers"
+  qgp figures "$run_dir/$sweep.sqlite" --out "$run_dir/$sweep"
+  cp "$run_dir/$sweep/$name.csv" "$run_dir/$sweep/$name.txt" "$here/results/"
+  echo "$sweep: $((SECONDS - start)) s (sweep and figures) -> $run_dir/$sweep/$name.{pdf,png}"
+done
