@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 from typing import Literal
 
 import numpy as np
-from qiskit.circuit import QuantumCircuit, QuantumRegister
+from qiskit.circuit import Gate, QuantumCircuit, QuantumRegister
 from qiskit.circuit.library import UCRYGate, UnitaryGate
 from qiskit.quantum_info import Operator, PauliList, SparsePauliOp
 
@@ -29,7 +29,9 @@ __all__ = [
     "SYSTEM",
     "BLOCK",
     "BlockEncoding",
+    "MultiplexerGate",
     "amplitude_encoding",
+    "amplitude_encoding_matrix",
     "normalised_amplitudes",
     "pauli_decomposition",
     "lcu_block_encoding",
@@ -45,6 +47,42 @@ BLOCK = "block"
 _PAULI_CUTOFF = 1e-14
 # Relative asymmetry accepted as round-off of a symmetric matrix.
 _SYMMETRY_RTOL = 1e-10
+
+
+class MultiplexerGate(Gate):
+    """Σ_k |k⟩⟨k|_controls ⊗ U_k on qubits [targets…, controls…] (first control least significant).
+
+    Aer's native ``multiplexer`` instruction: it applies each block U_k to its slice of the
+    statevector in one pass. The matrix (for `Operator` and tests) is block-diagonal in the order
+    k = 0, 1, …; the definition is that one unitary, so gate-level tools can still read it.
+    """
+
+    def __init__(self, matrices, label: str | None = None):
+        mats = [np.ascontiguousarray(m, dtype=complex) for m in matrices]
+        n_ctrl = len(mats).bit_length() - 1
+        if len(mats) != 1 << n_ctrl or not mats or mats[0].shape[0] != mats[0].shape[1]:
+            raise QgpError("a multiplexer needs 2^k square matrices of one size")
+        n_target = mats[0].shape[0].bit_length() - 1
+        super().__init__("multiplexer", n_target + n_ctrl, mats, label=label)
+
+    def validate_parameter(self, parameter):
+        return parameter  # matrices, passed to Aer as they are
+
+    def __array__(self, dtype=None, copy=None):
+        mats = self.params
+        dim = mats[0].shape[0]
+        out = np.zeros((dim * len(mats),) * 2, dtype=complex)
+        for k, m in enumerate(mats):
+            out[k * dim : (k + 1) * dim, k * dim : (k + 1) * dim] = m
+        return out if dtype is None else out.astype(dtype)
+
+    def _define(self):
+        qc = QuantumCircuit(self.num_qubits, name=self.name)
+        qc.append(UnitaryGate(np.asarray(self), check_input=False), qc.qubits)
+        self.definition = qc
+
+    def inverse(self, annotated: bool = False):
+        return MultiplexerGate([m.conj().T for m in self.params], label=self.label)
 
 
 def _num_qubits_of(length: int, what: str) -> int:
@@ -68,19 +106,17 @@ def normalised_amplitudes(vector) -> np.ndarray:
     return b / norm
 
 
-def _real_amplitude_tree(amplitudes: np.ndarray, reg: QuantumRegister, name: str) -> QuantumCircuit:
-    """A fixed unitary with |0…0⟩ ↦ Σ_j v_j|j⟩ for a real unit vector v: a binary tree of RYs.
+def _tree_levels(v: np.ndarray) -> list[tuple[int, np.ndarray]]:
+    """(target qubit, angles) of each level of the RY tree for the real unit vector ``v``.
 
     Level l rotates qubit n−1−l by θ = 2·atan2(b, a), uniformly controlled by the l more
-    significant qubits, where a, b are the norms of the two halves of the current block
-    (Grover & Rudolph, arXiv:quant-ph/0208112 (2002); Möttönen et al., QIC 5, 467 (2005)). At the
+    significant qubits, where a, b are the norms of the two halves of the current block. At the
     last level a, b are the signed entries themselves, so RY(θ) with θ in (−2π, 2π] puts the
-    signs in. Only RY and uniformly controlled RY: a real orthogonal matrix, exact under any
-    transpilation, whose inverse is the exact inverse (the LCU needs PREPARE† = PREPARE⁻¹).
+    signs in. The angle index is j >> (target+1): the value of qubits target+1 … n−1 with qubit
+    target+1 least significant, which is how UCRYGate indexes its controls.
     """
-    v = np.asarray(amplitudes, dtype=float)
-    n = len(reg)
-    qc = QuantumCircuit(reg, name=name)
+    n = v.size.bit_length() - 1
+    levels = []
     for level in range(n):
         target = n - 1 - level
         blocks = v.reshape(2**level, 2, 2 ** (n - 1 - level))
@@ -89,26 +125,66 @@ def _real_amplitude_tree(amplitudes: np.ndarray, reg: QuantumRegister, name: str
         else:
             a = np.linalg.norm(blocks[:, 0, :], axis=1)
             b = np.linalg.norm(blocks[:, 1, :], axis=1)
-        # The first axis is j >> (target+1): the value of qubits target+1 … n−1 with qubit
-        # target+1 least significant, which is how UCRYGate indexes its controls.
-        angles = 2 * np.arctan2(b, a)
+        levels.append((target, 2 * np.arctan2(b, a)))
+    return levels
+
+
+def _real_amplitude_tree(
+    amplitudes: np.ndarray, reg: QuantumRegister, name: str, native: bool = False
+) -> QuantumCircuit:
+    """A fixed unitary with |0…0⟩ ↦ Σ_j v_j|j⟩ for a real unit vector v: a binary tree of RYs.
+
+    (Grover & Rudolph, arXiv:quant-ph/0208112 (2002); Möttönen et al., QIC 5, 467 (2005)); levels
+    as in `_tree_levels`. Only RY and uniformly controlled RY: a real orthogonal matrix, exact
+    under any transpilation, whose inverse is the exact inverse (the LCU needs
+    PREPARE† = PREPARE⁻¹). ``native`` writes each uniformly controlled RY as a `MultiplexerGate`
+    (the same operator, which Aer applies without transpiling).
+    """
+    v = np.asarray(amplitudes, dtype=float)
+    qc = QuantumCircuit(reg, name=name)
+    for level, (target, angles) in enumerate(_tree_levels(v)):
         if level == 0:
             qc.ry(float(angles[0]), reg[target])
+        elif native:
+            qc.append(MultiplexerGate([_ry(t) for t in angles]), [reg[target], *reg[target + 1 :]])
         else:
             qc.append(UCRYGate([float(t) for t in angles]), [reg[target], *reg[target + 1 :]])
     return qc
 
 
-def amplitude_encoding(vector, name: str = SYSTEM) -> QuantumCircuit:
+def _ry(theta: float) -> np.ndarray:
+    c, s = np.cos(theta / 2), np.sin(theta / 2)
+    return np.array([[c, -s], [s, c]], dtype=complex)
+
+
+def amplitude_encoding_matrix(vector) -> np.ndarray:
+    """The real orthogonal matrix of `amplitude_encoding` (column 0 is b/‖b‖), computed in numpy."""
+    v = normalised_amplitudes(vector)
+    dim = v.size
+    u = np.eye(dim)
+    for target, angles in _tree_levels(v):
+        # rows j = (controls, target bit, lower bits); rotate each target pair by its angle
+        w = u.reshape(dim >> (target + 1), 2, 1 << target, dim)
+        c = np.cos(angles / 2)[:, None, None]
+        s = np.sin(angles / 2)[:, None, None]
+        a0, a1 = w[:, 0].copy(), w[:, 1].copy()
+        w[:, 0] = c * a0 - s * a1
+        w[:, 1] = s * a0 + c * a1
+        u = w.reshape(dim, dim)
+    return u
+
+
+def amplitude_encoding(vector, name: str = SYSTEM, *, native: bool = False) -> QuantumCircuit:
     """Circuit on register ``name`` preparing Σ_j b_j/‖b‖ |j⟩ from |0…0⟩ (``name[0]`` least significant).
 
     Uses the real RY tree rather than qiskit's ``StatePreparation``: same state, but a fixed
     real unitary whose inverse is exact, and Aer 0.18 crashed on the multiplexers that
-    ``StatePreparation.inverse()`` transpiles to.
+    ``StatePreparation.inverse()`` transpiles to. ``native``: the uniformly controlled RYs as
+    `MultiplexerGate` s (simulation form; same operator).
     """
     b = normalised_amplitudes(vector)
     reg = QuantumRegister(_num_qubits_of(b.size, "the vector to encode"), name)
-    return _real_amplitude_tree(b, reg, "encode")
+    return _real_amplitude_tree(b, reg, "encode", native)
 
 
 def check_matrix(A) -> np.ndarray:

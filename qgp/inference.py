@@ -11,13 +11,17 @@ with an error budget that adds one imperfection at a time.
 
 from __future__ import annotations
 
+import hashlib
 import math
 import sys
+import threading
 import time
+from collections import OrderedDict
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 
 import numpy as np
+from qiskit import QuantumCircuit
 
 from .errors import QgpError
 from .estimators import (
@@ -33,14 +37,22 @@ from .estimators import (
 )
 from .filter_model import model_operator
 from .gp import count_nonpositive, nlpd, rmse
-from .inversion import InversionCircuit, build_inversion, postselected_system_amplitudes
-from .phase_estimation import phase_estimation_circuit, phase_oracle
+from .inversion import InversionCircuit, build_inversion, postselected_system_amplitudes, rotation_constants
+from .phase_estimation import PhaseOracle, derived_evolution_time, phase_estimation_circuit, phase_oracle
 from .problem import Problem
 from .settings import CircuitSettings, ReadoutSettings
 from .simulate import default_memory_cap, require_memory, run_statevectors, statevector_bytes
 from .system import eigenvalue_bounds
 
-__all__ = ["InferenceResult", "ShotEstimates", "infer", "shot_estimates", "planned_qubits", "SIMULATED_FORM"]
+__all__ = [
+    "InferenceResult",
+    "ShotEstimates",
+    "infer",
+    "shot_estimates",
+    "planned_qubits",
+    "SIMULATED_FORM",
+    "clear_caches",
+]
 
 #: The circuit form every simulation uses (fused controlled powers, diagonal rotation); the gate
 #: form is the same operator (tests/test_inversion.py) and is what resources and exports count.
@@ -316,10 +328,114 @@ def _ceil(x):
     return None if x is None or not math.isfinite(x) else int(math.ceil(x))
 
 
+# -- caches: each distinct circuit is built (and simulated with a reference register) once -------
+#
+# Keyed by the matrix's bytes (SHA-256), the circuit settings, the rotation, the bounds and the
+# form, so a sweep that revisits a matrix with another seed, shot count or test set reuses the
+# circuits and, for the amortised strategy, the operators B and M (no simulation at all). Small:
+# a few large LCU walks would otherwise hold hundreds of MB.
+_CACHE_SIZE = 8
+_CACHE_LOCK = threading.Lock()
+_INVERSIONS: OrderedDict = OrderedDict()
+_OPERATORS: OrderedDict = OrderedDict()
+_QPE_BODIES: OrderedDict = OrderedDict()
+
+
+def clear_caches() -> None:
+    """Forget every cached circuit and operator (benchmarks time cold runs with this)."""
+    with _CACHE_LOCK:
+        _INVERSIONS.clear()
+        _OPERATORS.clear()
+        _QPE_BODIES.clear()
+
+
+def _matrix_key(A: np.ndarray) -> str:
+    a = np.ascontiguousarray(A, dtype=float)
+    return hashlib.sha256(repr(a.shape).encode() + a.tobytes()).hexdigest()
+
+
+def _cached(cache: OrderedDict, key, make):
+    with _CACHE_LOCK:
+        if key in cache:
+            cache.move_to_end(key)
+            return cache[key]
+    value = make()  # outside the lock: builds can take seconds
+    with _CACHE_LOCK:
+        cache[key] = value
+        while len(cache) > _CACHE_SIZE:
+            cache.popitem(last=False)
+    return value
+
+
+def _inversion_key(A, circuit: CircuitSettings, rotation: str, bounds) -> tuple:
+    return (_matrix_key(A), circuit, rotation, tuple(float(b) for b in bounds), SIMULATED_FORM)
+
+
+def _cached_pair(A, circuit: CircuitSettings, bounds) -> tuple[InversionCircuit, InversionCircuit]:
+    """The ``inverse`` and ``inverse_sqrt`` circuits, built once around one shared phase oracle."""
+
+    def make():
+        inv = build_inversion(A, circuit, "inverse", bounds, form=SIMULATED_FORM)
+        inv_sqrt = build_inversion(A, circuit, "inverse_sqrt", bounds, form=SIMULATED_FORM, oracle=inv.oracle)
+        return inv, inv_sqrt
+
+    return _cached(_INVERSIONS, _inversion_key(A, circuit, "pair", bounds), make)
+
+
 def _qpe_body(A, circuit: CircuitSettings, bounds, inv: InversionCircuit):
     """The phase-estimation body of ``inv`` (same oracle and block encoding), for per-point circuits."""
-    oracle = phase_oracle(A, circuit, bounds[1], form=SIMULATED_FORM, block_encoding=inv.block_encoding)
-    return phase_estimation_circuit(oracle)
+
+    def make():
+        oracle = inv.oracle
+        if oracle is None:
+            oracle = phase_oracle(A, circuit, bounds[1], form=SIMULATED_FORM, block_encoding=inv.block_encoding)
+        return phase_estimation_circuit(oracle)
+
+    return _cached(_QPE_BODIES, _inversion_key(A, circuit, "qpe", bounds), make)
+
+
+def _with_preparation(inv: InversionCircuit, vector: np.ndarray) -> InversionCircuit:
+    """``inv`` with the amplitude encoding of ``vector`` in front: what ``build_inversion(…,
+    prepare=vector)`` builds, without building the rest again."""
+    from .encoding import amplitude_encoding
+
+    qc = QuantumCircuit(*inv.circuit.qregs, name=inv.circuit.name)
+    qc.compose(amplitude_encoding(vector, native=True), qubits=qc.qregs[0][:], inplace=True, copy=False)
+    qc.compose(inv.circuit, inplace=True, copy=False)
+    return replace(inv, circuit=qc)
+
+
+@dataclass(frozen=True)
+class _ExactModel:
+    """The constants of the exact-oracle inversion the filter model needs, without its circuit."""
+
+    rotation: str
+    scale: float
+    alpha: None
+    evolution_time: float
+    clock_eigenvalues: np.ndarray
+    admitted: np.ndarray
+    settings: CircuitSettings
+
+
+def _exact_model(circuit: CircuitSettings, rotation: str, bounds) -> _ExactModel:
+    """What ``build_inversion(A, exact settings, rotation, bounds)`` would report, from the clock
+    grid alone (t from λ_hi unless set; same floor, admission and C): no expm, no gates."""
+    c = circuit.clock_qubits
+    t = circuit.evolution_time if circuit.evolution_time is not None else derived_evolution_time(bounds[1], c)
+    oracle = PhaseOracle(
+        kind="exact",
+        form=SIMULATED_FORM,
+        clock_qubits=c,
+        n_system_qubits=0,
+        n_block_qubits=0,
+        evolution_time=float(t),
+        alpha=None,
+        block_encoding=None,
+        powers=(),
+    )
+    lam, _, admitted, scale, _ = rotation_constants(oracle, float(bounds[0]), circuit.filter_floor, rotation)
+    return _ExactModel(rotation, scale, None, float(t), lam, admitted, circuit)
 
 
 def infer(
@@ -341,17 +457,20 @@ def infer(
     bounds = eigenvalue_bounds(A, problem.noise_variance)
     t0 = time.perf_counter()
     say(f"building circuits: {circuit.evolution} oracle, {circuit.clock_qubits} clock qubits, {width} qubits simulated")
-    inv = build_inversion(A, circuit, "inverse", bounds, form=SIMULATED_FORM)
-    inv_sqrt = build_inversion(A, circuit, "inverse_sqrt", bounds, form=SIMULATED_FORM)
+    inv, inv_sqrt = _cached_pair(A, circuit, bounds)
     timings["build"] = time.perf_counter() - t0
 
     yhat, y_norm, khat, k_norms = _unit_inputs(problem)
 
     t0 = time.perf_counter()
+    sim_times: dict[str, float] = {"transpile": 0.0, "simulate": 0.0}
     operators = None
     if readout.strategy == "amortised":
         say("simulating the inversion once with a reference register (amortised)")
-        operators = operators_from_reference_run(inv, inv_sqrt, cap=cap)
+        key = _inversion_key(A, circuit, "operators", bounds)
+        operators = _cached(
+            _OPERATORS, key, lambda: operators_from_reference_run(inv, inv_sqrt, cap=cap, timings=sim_times)
+        )
         v = operators.B @ yhat
         p0, p1 = hadamard_probabilities(v, khat)
         pf = variance_probabilities(operators.M, khat)
@@ -360,13 +479,18 @@ def infer(
     else:
         say(f"simulating {3 * problem.n_test + 1} per-point circuits")
         qpe = _qpe_body(A, circuit, bounds, inv)
-        p0, p1, pf = per_point_probabilities(qpe, inv, inv_sqrt.circuit, inv_sqrt, yhat, khat, cap=cap)
-        h0, h1 = per_point_hadamard(qpe, inv, khat, khat, cap=cap)
+        p0, p1, pf = per_point_probabilities(qpe, inv, inv_sqrt.circuit, inv_sqrt, yhat, khat, cap=cap, timings=sim_times)
+        h0, h1 = per_point_hadamard(qpe, inv, khat, khat, cap=cap, timings=sim_times)
         had = h0 - h1
-        prep = build_inversion(A, circuit, "inverse", bounds, prepare=yhat, form=SIMULATED_FORM)
-        sv = run_statevectors([prep.circuit], cap=cap)[0]
+        # The inversion on ŷ alone: the cached circuit with the state preparation in front.
+        prep = _with_preparation(inv, yhat)
+        sv = run_statevectors([prep.circuit], cap=cap, timings=sim_times)[0]
         success_inv = float(np.sum(np.abs(postselected_system_amplitudes(sv, prep)) ** 2))
-    timings["simulate"] = time.perf_counter() - t0
+    elapsed = time.perf_counter() - t0
+    # "transpile": preparing circuits for Aer (nothing for the native simulation form);
+    # "simulate": the rest of this stage — circuit assembly, the simulator jobs, reading results.
+    timings["transpile"] = sim_times["transpile"]
+    timings["simulate"] = elapsed - sim_times["transpile"]
 
     t0 = time.perf_counter()
     exact = problem.exact.predict(problem.X_test)
@@ -391,11 +515,9 @@ def infer(
         failures = int(np.sum(N - n0 - n1))
 
     # Error budget: exact GP → exact-oracle phase estimation and filtering (model) → chosen oracle → shots.
-    exact_settings = replace(circuit, evolution="exact", trotter_steps=1)
-    model_inv = build_inversion(A, exact_settings, "inverse", bounds, form=SIMULATED_FORM) if circuit.evolution != "exact" else inv
-    model_sqrt = (
-        build_inversion(A, exact_settings, "inverse_sqrt", bounds, form=SIMULATED_FORM) if circuit.evolution != "exact" else inv_sqrt
-    )
+    # The exact-oracle model needs only the clock grid's constants, not a circuit.
+    model_inv = _exact_model(circuit, "inverse", bounds) if circuit.evolution != "exact" else inv
+    model_sqrt = _exact_model(circuit, "inverse_sqrt", bounds) if circuit.evolution != "exact" else inv_sqrt
     B_model = model_operator(model_inv, A)
     M_model = model_operator(model_sqrt, A)
     vm = B_model @ yhat

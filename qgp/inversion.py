@@ -25,13 +25,15 @@ the walk, whose grid α·cos(2πk/2^c) is not uniform, it is the local spacing a
 (2π/2^c)·√(α² − λ_lo²).
 
 Two forms of the same operator: ``"gate"`` (uniformly controlled RY, gate-level oracles; what is
-counted and exported) and ``"simulation"`` (fused controlled powers, and the multiplexed RY as
-S·H·D·H·S† on the flag with D diagonal over clock ⊗ flag, which Aer applies natively).
+counted and exported) and ``"simulation"`` (fused controlled powers — see qgp.phase_estimation —,
+the multiplexed RY as S·H·D·H·S† on the flag with D diagonal over clock ⊗ flag, and the state
+preparation's uniformly controlled RYs as multiplexers: only instructions Aer applies natively, so
+the simulation form is never transpiled).
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 from qiskit.circuit import QuantumCircuit, QuantumRegister
@@ -61,6 +63,7 @@ __all__ = [
     "InversionCircuit",
     "build_inversion",
     "filter_floor",
+    "rotation_constants",
     "rotation_angles",
     "flag_rotation_circuit",
     "eigenvalue_filter",
@@ -86,7 +89,9 @@ class InversionCircuit:
     walk (its clock covers [−α, α]), λ_hi/λ_lo for ``exact``/``trotter``. ``n_oracle_calls``
     counts controlled applications of e^{iAt}, of one product-formula sequence for e^{iAt}, or
     of W, including the uncompute; ``n_pauli_terms`` the Pauli strings the oracle is built from
-    (0 for ``exact`` and the dilation walk).
+    (0 for ``exact`` and the dilation walk). ``oracle`` is the phase oracle the circuit was built
+    with and ``rotation_start`` the index in ``circuit.data`` where the flag rotation begins (what
+    comes before it is state preparation and phase estimation).
     """
 
     circuit: QuantumCircuit
@@ -109,6 +114,8 @@ class InversionCircuit:
     n_oracle_calls: int
     block_encoding: BlockEncoding | None = None
     n_pauli_terms: int = 0
+    oracle: PhaseOracle | None = field(default=None, repr=False, compare=False)
+    rotation_start: int | None = None
 
     @property
     def clock_qubits(self) -> int:
@@ -168,6 +175,28 @@ def filter_floor(oracle: PhaseOracle, lambda_lo: float, override: float | None =
     return max(lambda_lo - bin_width, lambda_lo / 2)
 
 
+def rotation_constants(oracle: PhaseOracle, lambda_lo: float, floor_override: float | None, rotation: Rotation):
+    """(λ̃ per clock value, floor, admitted, C, g per clock value) for ``oracle``'s clock grid.
+
+    Needs only the oracle's decoding (kind, clock qubits, t or α), not its gates: the error
+    budget's exact-oracle model uses it with a gate-free `PhaseOracle`.
+    """
+    lam = oracle.clock_eigenvalues()
+    floor = filter_floor(oracle, lambda_lo, floor_override)
+    positive = lam > _ZERO_RTOL * float(np.max(np.abs(lam)))
+    admitted = positive & (lam >= floor)
+    if not np.any(admitted):
+        raise QgpError(
+            f"no clock value decodes to an eigenvalue at or above the filter floor {floor:.4g}; "
+            "raise [circuit] clock_qubits or lower [circuit] filter_floor"
+        )
+    scale = float(np.min(lam[admitted]))
+    ratio = np.zeros_like(lam)
+    ratio[admitted] = scale / lam[admitted]
+    amplitudes = ratio if rotation == "inverse" else np.sqrt(ratio)
+    return lam, floor, admitted, scale, amplitudes
+
+
 def rotation_angles(amplitudes: np.ndarray) -> np.ndarray:
     """RY angles θ_k = 2·arcsin(g_k), so RY(θ_k)|0⟩ has amplitude g_k on |1⟩."""
     return 2 * np.arcsin(np.clip(amplitudes, 0.0, 1.0))
@@ -207,6 +236,7 @@ def build_inversion(
     prepare: np.ndarray | None = None,
     uncompute: bool | None = None,
     form: Form = "gate",
+    oracle: PhaseOracle | None = None,
 ) -> InversionCircuit:
     """Build the inversion circuit for A with the a-priori eigenvalue bounds (λ_lo, λ_hi).
 
@@ -214,6 +244,8 @@ def build_inversion(
     (the dilation encoding diagonalises A only to build √(I − A²/α²)). ``prepare`` prepends the
     amplitude encoding of that vector on ``system``. ``uncompute`` defaults to True for
     ``inverse`` and False for ``inverse_sqrt`` (whose answer, P(flag = 1), needs no uncompute).
+    ``oracle`` reuses a phase oracle already built for the same A, settings, bounds and form (the
+    ``inverse`` and ``inverse_sqrt`` circuits share one).
     """
     a, lo, hi = _check_inputs(A, settings, rotation, bounds, form)
     m = a.shape[0].bit_length() - 1
@@ -221,28 +253,24 @@ def build_inversion(
         uncompute = rotation == "inverse"
     encode = None
     if prepare is not None:
-        encode = amplitude_encoding(prepare)
+        encode = amplitude_encoding(prepare, native=form == "simulation")
         if encode.num_qubits != m:
             raise QgpError(
                 f"the vector to prepare has {2**encode.num_qubits} entries but A is {2**m}×{2**m}; "
                 "pad it the same way as A"
             )
-    be = block_encoding(a, settings.encoding) if settings.evolution == "walk" else None
-    oracle = phase_oracle(a, settings, hi, form=form, block_encoding=be)
-
-    lam = oracle.clock_eigenvalues()
-    floor = filter_floor(oracle, lo, settings.filter_floor)
-    positive = lam > _ZERO_RTOL * float(np.max(np.abs(lam)))
-    admitted = positive & (lam >= floor)
-    if not np.any(admitted):
+    if oracle is None:
+        be = block_encoding(a, settings.encoding) if settings.evolution == "walk" else None
+        oracle = phase_oracle(a, settings, hi, form=form, block_encoding=be)
+    elif (oracle.kind, oracle.clock_qubits, oracle.form) != (settings.evolution, settings.clock_qubits, form):
         raise QgpError(
-            f"no clock value decodes to an eigenvalue at or above the filter floor {floor:.4g}; "
-            "raise [circuit] clock_qubits or lower [circuit] filter_floor"
+            f"the oracle given ({oracle.kind}, {oracle.clock_qubits} clock qubits, {oracle.form} form) does not "
+            f"match the settings ({settings.evolution}, {settings.clock_qubits}, {form})"
         )
-    scale = float(np.min(lam[admitted]))
-    ratio = np.zeros_like(lam)
-    ratio[admitted] = scale / lam[admitted]
-    amplitudes = ratio if rotation == "inverse" else np.sqrt(ratio)
+    else:
+        be = oracle.block_encoding
+
+    lam, floor, admitted, scale, amplitudes = rotation_constants(oracle, lo, settings.filter_floor, rotation)
 
     c = settings.clock_qubits
     system = QuantumRegister(m, SYSTEM)
@@ -260,6 +288,7 @@ def build_inversion(
         qc.compose(encode, qubits=system[:], inplace=True, copy=False)
     qpe_qubits = [*system, *clock, *block]
     qc.compose(phase_estimation_circuit(oracle), qubits=qpe_qubits, inplace=True, copy=False)
+    rotation_start = len(qc.data)
     rotation_circuit = flag_rotation_circuit(rotation_angles(amplitudes), form)
     qc.compose(rotation_circuit, qubits=[*clock, flag[0]], inplace=True, copy=False)
     if uncompute:
@@ -290,6 +319,8 @@ def build_inversion(
         n_oracle_calls=oracle.n_calls * (2 if uncompute else 1),
         block_encoding=be,
         n_pauli_terms=oracle.n_pauli_terms,
+        oracle=oracle,
+        rotation_start=rotation_start,
     )
 
 

@@ -21,15 +21,22 @@ The evolution time for ``exact``/``trotter`` is t = 2π(1 − 2^(1−c))/λ_hi u
 at 1 would alias λ_hi to clock value 0, and the margin of two bins keeps it clear of the wrap.
 
 Two forms of the same operator: ``"gate"`` builds the gate-level circuit (what resource counts and
-exports see); ``"simulation"`` fuses every controlled power into one block-diagonal unitary,
-which Aer applies natively. The controlled powers act on qubits [system…, block…, control]: the
-control is the most significant qubit, so diag(I, V) is their matrix.
+exports see); ``"simulation"`` builds only instructions Aer applies natively, so a simulation needs
+no transpiling. The controlled powers act on qubits [system…, block…, control]: the control is the
+most significant qubit, so diag(I, V) is their matrix. In the simulation form, when V is held as a
+dense matrix (exact, Trotter, the walk up to ``_MAX_FUSED_QUBITS``), phase estimation applies all
+controlled powers of a run of clock qubits as one multiplexer Σ_k |k⟩⟨k|_clock ⊗ V^k (one pass over
+the statevector with a 2^m×2^m block per amplitude group, instead of one pass per clock qubit with a
+2^(m+1)-sized block); larger LCU walks run PREPARE, the controlled SELECT (a multiplexer over
+block and control) and the controlled reflection (a diagonal) as separate native pieces. The
+inverse QFT is written out as H, controlled phases and swaps.
 """
 
 from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, field
+from functools import lru_cache
 from typing import Literal
 
 import numpy as np
@@ -42,6 +49,7 @@ from qgp.encoding import (
     BLOCK,
     SYSTEM,
     BlockEncoding,
+    MultiplexerGate,
     check_matrix,
     pauli_decomposition,
 )
@@ -73,9 +81,14 @@ CLOCK = "clock"
 Form = Literal["gate", "simulation"]
 
 # Largest controlled unitary (in qubits) the simulation form fuses into one dense matrix:
-# 2^10 × 2^10 complex is 16 MB per gate (Aer and transpile copy it). Beyond it the walk falls
-# back to its gate-level controlled W.
+# 2^10 × 2^10 complex is 16 MB per gate (Aer and transpile copy it). Beyond it the LCU walk runs
+# as native pieces (PREPARE, controlled SELECT, controlled reflection).
 _MAX_FUSED_QUBITS = 10
+
+# Largest stack of matrices in one phase-estimation multiplexer (2^g blocks of 2^t × 2^t complex):
+# longer clock registers are split into runs of g qubits, one multiplexer each. 32 MB keeps the
+# copies Aer and qiskit make of the parameters well below any statevector worth simulating.
+_MAX_MULTIPLEXER_BYTES = 1 << 25
 
 
 def derived_evolution_time(lambda_hi: float, clock_qubits: int) -> float:
@@ -253,6 +266,133 @@ def controlled_walk(be: BlockEncoding) -> Gate:
     return qc.to_gate()
 
 
+@dataclass(frozen=True)
+class _WalkPieces:
+    """A large LCU walk's controlled W = PREPARE · controlled SELECT · PREPARE† · controlled R,
+    each piece an instruction Aer applies natively (simulation form).
+
+    PREPARE is the LCU's own RY tree with each uniformly controlled RY as a multiplexer
+    (``prepare``: (gate, block qubit indices) in order); SELECT, controlled, is one multiplexer
+    over [block…, control] with targets ``system`` (identity for control = 0 and unused block
+    values); the controlled reflection is a diagonal over [block…, control]. Same operator as
+    `controlled_walk` (tests/test_speed_paths.py).
+    """
+
+    n_system_qubits: int
+    n_block_qubits: int
+    prepare: tuple
+    prepare_dg: tuple
+    select: Gate
+    select_dg: Gate
+    reflect: Gate
+
+    def append(self, qc: QuantumCircuit, system, block, ctrl, *, inverse: bool = False) -> None:
+        """Append controlled W (or its inverse) to ``qc``; the pieces are shared, not copied."""
+        steps = [
+            *[(g, [block[i] for i in idx]) for g, idx in self.prepare],
+            (self.select, [*system, *block, ctrl]),
+            *[(g, [block[i] for i in idx]) for g, idx in self.prepare_dg],
+            (self.reflect, [*block, ctrl]),
+        ]
+        if inverse:
+            inv = {id(self.select): self.select_dg, id(self.reflect): self.reflect}
+            for g, _ in self.prepare_dg:
+                inv[id(g)] = _paired(self.prepare_dg, self.prepare, g)
+            for g, _ in self.prepare:
+                inv[id(g)] = _paired(self.prepare, self.prepare_dg, g)
+            steps = [(inv[id(g)], q) for g, q in reversed(steps)]
+        for g, q in steps:
+            qc.append(g, q, copy=False)
+
+    def controlled_walk(self) -> Gate:
+        """The controlled W as one gate on [system…, block…, control] (its definition: the pieces)."""
+        system = QuantumRegister(self.n_system_qubits, SYSTEM)
+        block = QuantumRegister(self.n_block_qubits, BLOCK)
+        ctrl = QuantumRegister(1, "ctrl")
+        qc = QuantumCircuit(system, block, ctrl, name="c-walk-lcu-native")
+        self.append(qc, system, block, ctrl[0])
+        gate = Gate("c-walk-lcu-native", qc.num_qubits, [])
+        gate.definition = qc
+        return gate
+
+
+def _paired(source: tuple, target: tuple, gate: Gate) -> Gate:
+    """The gate of ``target`` that inverts ``gate`` of ``source`` (the trees are mirror images)."""
+    for i, (g, _) in enumerate(source):
+        if g is gate:
+            return target[len(target) - 1 - i][0]
+    raise KeyError("gate not in the tree")
+
+
+def _tree_matrix(levels, n: int) -> np.ndarray:
+    """The 2^n × 2^n matrix of RY-tree levels (target, angles): level angles are indexed by the
+    value of the qubits above the target (target+1 least significant), as in UCRYGate."""
+    dim = 2**n
+    u = np.eye(dim)
+    for target, angles in levels:
+        w = u.reshape(dim >> (target + 1), 2, 1 << target, dim)
+        c = np.cos(np.asarray(angles) / 2)[:, None, None]
+        s = np.sin(np.asarray(angles) / 2)[:, None, None]
+        a0, a1 = w[:, 0].copy(), w[:, 1].copy()
+        w[:, 0] = c * a0 - s * a1
+        w[:, 1] = s * a0 + c * a1
+        u = w.reshape(dim, dim)
+    return u
+
+
+def _lcu_walk_pieces(be: BlockEncoding) -> _WalkPieces:
+    """Native pieces of an LCU walk (see `_WalkPieces`), read from the LCU's own circuit.
+
+    PREPARE's RY tree is fused into two pieces: its first levels act only on the upper h block
+    qubits (one dense 2^h unitary), the rest rotate the lower qubits controlled by everything
+    above, so for each value of the upper qubits they form one unitary on the lower ones (one
+    multiplexer). Two passes over the statevector instead of one per level.
+    """
+    from qiskit.circuit.library import DiagonalGate
+
+    m, k = be.n_system_qubits, be.n_block_qubits
+    tree = be.circuit.data[0].operation.definition
+    levels = []
+    for inst in tree.data:
+        op = inst.operation
+        if op.name not in ("ry", "ucry"):  # the tree is RY and uniformly controlled RY (qgp.encoding)
+            raise QgpError(f"unexpected gate {op.name!r} in the LCU's PREPARE")
+        levels.append((tree.find_bit(inst.qubits[0]).index, np.array([float(t) for t in op.params])))
+    levels.sort(key=lambda lv: -lv[0])  # level l targets qubit k − 1 − l
+    lo = k // 2
+    hi = k - lo
+    u_hi = _tree_matrix([(t - lo, a) for t, a in levels[:hi]], hi).astype(complex)
+    prepare = [(UnitaryGate(u_hi, label="prepare-hi", check_input=False), list(range(lo, k)))]
+    prepare_dg = [(UnitaryGate(u_hi.T, label="prepare-hi_dg", check_input=False), list(range(lo, k)))]
+    if lo:
+        lows = []
+        for v in range(2**hi):
+            lv = [(t, a[v * 2 ** (lo - 1 - t) : (v + 1) * 2 ** (lo - 1 - t)]) for t, a in levels[hi:]]
+            lows.append(_tree_matrix(lv, lo))
+        mux = MultiplexerGate(lows, label="prepare-lo")
+        prepare.append((mux, list(range(k))))
+        prepare_dg.insert(0, (mux.inverse(), list(range(k))))
+    dim = 2**m
+    eye = np.eye(dim, dtype=complex)
+    mats = [eye] * (2**k) + [eye] * (2**k)
+    op = be.pauli_op
+    for j, (pauli, c) in enumerate(zip(op.paulis, op.coeffs.real)):
+        mats[2**k + j] = np.sign(c) * pauli.to_matrix()
+    select = MultiplexerGate(mats, label="c-select")
+    diag = np.ones(2 ** (k + 1))
+    diag[2**k + 1 :] = -1.0  # control = 1: +1 on block = 0, −1 elsewhere
+    reflect = DiagonalGate([float(x) for x in diag])
+    return _WalkPieces(
+        n_system_qubits=m,
+        n_block_qubits=k,
+        prepare=tuple(prepare),
+        prepare_dg=tuple(prepare_dg),
+        select=select,
+        select_dg=select.inverse(),
+        reflect=reflect,
+    )
+
+
 # ---------------------------------------------------------------------------------------------
 # Oracles
 
@@ -267,7 +407,10 @@ class PhaseOracle:
     phase estimation; ``n_pauli_terms`` the Pauli strings the oracle is built from (Trotter:
     A's decomposition, identity included; LCU walk: the selected terms; otherwise 0).
     ``repeats[j] = (base, n)`` when ``powers[j]`` is ``base`` applied n times (gate-level Trotter
-    and walk), so the inverse can invert ``base`` once.
+    and walk), so the inverse can invert ``base`` once. Simulation form only: ``power_matrices[j]``
+    is V^{2^j} as a dense matrix (index = system + 2^m·block) when V is held densely, and
+    ``walk_pieces`` the native pieces of a large LCU walk; `phase_estimation_circuit` builds from
+    these rather than from ``powers``.
     """
 
     kind: Evolution
@@ -282,6 +425,8 @@ class PhaseOracle:
     n_calls: int = 0
     n_pauli_terms: int = 0
     repeats: tuple[tuple[Gate, int], ...] | None = field(default=None, repr=False)
+    power_matrices: tuple[np.ndarray, ...] | None = field(default=None, repr=False, compare=False)
+    walk_pieces: "_WalkPieces | None" = field(default=None, repr=False, compare=False)
 
     def clock_eigenvalues(self) -> np.ndarray:
         """Decoded λ̃ for each clock value k in [0, 2^c)."""
@@ -300,14 +445,21 @@ def _check_clock(clock_qubits: int) -> None:
         raise QgpError(f"clock_qubits must be an integer ≥ 1, got {clock_qubits!r}")
 
 
-def _squared_powers(v: np.ndarray, clock_qubits: int, label: str) -> tuple[Gate, ...]:
-    """diag(I, V^{2^j}) for j < c, by c − 1 squarings of V."""
-    gates = []
-    for j in range(clock_qubits):
-        if j:
-            v = v @ v
-        gates.append(UnitaryGate(_block_diag_identity(v), label=f"{label}^{2**j}", check_input=False))
-    return tuple(gates)
+def _squares(v: np.ndarray, clock_qubits: int) -> tuple[np.ndarray, ...]:
+    """V^{2^j} for j < c: c − 1 squarings of V."""
+    out = [np.asarray(v, dtype=complex)]
+    for _ in range(1, clock_qubits):
+        out.append(out[-1] @ out[-1])
+    return tuple(out)
+
+
+def _squared_powers(v, clock_qubits: int, label: str) -> tuple[Gate, ...]:
+    """diag(I, V^{2^j}) for j < c, by c − 1 squarings of V (or from the squares, when given)."""
+    squares = v if isinstance(v, tuple) else _squares(v, clock_qubits)
+    return tuple(
+        UnitaryGate(_block_diag_identity(sq), label=f"{label}^{2**j}", check_input=False)
+        for j, sq in enumerate(squares)
+    )
 
 
 def _repeated(base: Gate, times: int, name: str) -> Gate:
@@ -327,13 +479,14 @@ def _repeated(base: Gate, times: int, name: str) -> Gate:
 def exact_oracle(A, clock_qubits: int, evolution_time: float, form: Form = "gate") -> PhaseOracle:
     """Controlled e^{iAt·2^j} as block-diagonal unitaries (ideal Hamiltonian simulation).
 
-    One `scipy.linalg.expm`, then c − 1 matrix products. The same gates serve both forms.
+    One `scipy.linalg.expm`, then c − 1 matrix products. The same gates serve both forms; the
+    simulation form also keeps the matrices, which phase estimation applies as multiplexers.
     """
     a = check_matrix(A)
     _check_clock(clock_qubits)
     _check_form(form)
     m = a.shape[0].bit_length() - 1
-    v = scipy.linalg.expm(1j * evolution_time * a)
+    squares = _squares(scipy.linalg.expm(1j * evolution_time * a), clock_qubits)
     return PhaseOracle(
         kind="exact",
         form=form,
@@ -343,8 +496,9 @@ def exact_oracle(A, clock_qubits: int, evolution_time: float, form: Form = "gate
         evolution_time=float(evolution_time),
         alpha=None,
         block_encoding=None,
-        powers=_squared_powers(v, clock_qubits, "c-exp(iAt)"),
+        powers=_squared_powers(squares, clock_qubits, "c-exp(iAt)"),
         n_calls=2**clock_qubits - 1,
+        power_matrices=squares if form == "simulation" else None,
     )
 
 
@@ -362,10 +516,10 @@ def trotter_oracle(
         raise QgpError(f"trotter_steps must be an integer ≥ 1, got {steps!r}")
     op = pauli_decomposition(A)
     delta = evolution_time / steps
-    repeats = None
+    repeats = squares = None
     if form == "simulation":
-        v = np.linalg.matrix_power(_step_matrix(op, delta, order), steps)
-        powers = _squared_powers(v, clock_qubits, f"c-trotter{order}")
+        squares = _squares(np.linalg.matrix_power(_step_matrix(op, delta, order), steps), clock_qubits)
+        powers = _squared_powers(squares, clock_qubits, f"c-trotter{order}")
     else:
         step = controlled_trotter_step(op, delta, order)
         repeats = tuple((step, steps * 2**j) for j in range(clock_qubits))
@@ -383,6 +537,7 @@ def trotter_oracle(
         n_calls=2**clock_qubits - 1,
         n_pauli_terms=len(op),
         repeats=repeats,
+        power_matrices=squares,
     )
 
 
@@ -390,16 +545,22 @@ def walk_oracle(be: BlockEncoding, clock_qubits: int, form: Form = "gate") -> Ph
     """Controlled W^{2^j} for the qubitization walk W = R·U of block encoding ``be``.
 
     ``"gate"``: the gate-level controlled W repeated 2^j times. ``"simulation"``: diag(I, W^{2^j})
-    from the dense W by squaring, when it fits in ``_MAX_FUSED_QUBITS`` qubits.
+    from the dense W by squaring, when it fits in ``_MAX_FUSED_QUBITS`` qubits; above that, an LCU
+    walk's controlled W from native pieces (`_lcu_walk_pieces`), repeated.
     """
     _check_clock(clock_qubits)
     _check_form(form)
     n_target = be.n_system_qubits + be.n_block_qubits
-    repeats = None
+    repeats = squares = pieces = None
     if form == "simulation" and n_target + 1 <= _MAX_FUSED_QUBITS:
-        powers = _squared_powers(walk_matrix(be), clock_qubits, "c-W")
+        squares = _squares(walk_matrix(be), clock_qubits)
+        powers = _squared_powers(squares, clock_qubits, "c-W")
     else:
-        cw = controlled_walk(be)
+        if form == "simulation" and be.kind == "lcu":
+            pieces = _lcu_walk_pieces(be)
+            cw = pieces.controlled_walk()
+        else:
+            cw = controlled_walk(be)
         repeats = tuple((cw, 2**j) for j in range(clock_qubits))
         powers = tuple(_repeated(g, n, f"c-W^{n}") for g, n in repeats)
     return PhaseOracle(
@@ -415,6 +576,8 @@ def walk_oracle(be: BlockEncoding, clock_qubits: int, form: Form = "gate") -> Ph
         n_calls=2**clock_qubits - 1,
         n_pauli_terms=be.n_pauli_terms,
         repeats=repeats,
+        power_matrices=squares,
+        walk_pieces=pieces,
     )
 
 
@@ -466,10 +629,62 @@ def phase_estimation_circuit(oracle: PhaseOracle) -> QuantumCircuit:
         regs.append(block)
     qc = QuantumCircuit(*regs, name="qpe")
     qc.h(clock)
-    for j, gate in enumerate(oracle.powers):
-        qc.append(gate, [*system, *block, clock[j]])
-    qc.append(QFTGate(oracle.clock_qubits).inverse(), clock[:])
+    if oracle.form == "simulation" and oracle.power_matrices is not None:
+        for bits, gate in _power_multiplexers(oracle):
+            qc.append(gate, [*system, *block, *(clock[j] for j in bits)], copy=False)
+    elif oracle.form == "simulation" and oracle.walk_pieces is not None:
+        for j in range(oracle.clock_qubits):
+            for _ in range(2**j):
+                oracle.walk_pieces.append(qc, system, block, clock[j])
+    else:
+        for j, gate in enumerate(oracle.powers):
+            qc.append(gate, [*system, *block, clock[j]])
+        qc.append(QFTGate(oracle.clock_qubits).inverse(), clock[:])
+        return qc
+    qc.compose(_inverse_qft(oracle.clock_qubits), clock[:], inplace=True, copy=False)
     return qc
+
+
+def _power_multiplexers(oracle: PhaseOracle, inverse: bool = False) -> list[tuple[list[int], MultiplexerGate]]:
+    """Σ_k |k⟩⟨k| ⊗ V^k over runs of clock qubits, each run's stack within ``_MAX_MULTIPLEXER_BYTES``.
+
+    The stack for clock bits j0 … j0+g−1 holds V^{k·2^j0} for k < 2^g, built by doubling from
+    the squares V^{2^j}: entry k + 2^i is entry k times V^{2^(j0+i)} (all are powers of V, so
+    the order of the factors does not matter). ``inverse``: the conjugate transposes.
+    """
+    squares = oracle.power_matrices
+    dim = squares[0].shape[0]
+    c = oracle.clock_qubits
+    per_block = dim * dim * 16
+    g = max(1, min(c, int(np.log2(max(1, _MAX_MULTIPLEXER_BYTES // per_block)))))
+    out = []
+    for j0 in range(0, c, g):
+        bits = list(range(j0, min(c, j0 + g)))
+        stack = np.eye(dim, dtype=complex)[None]
+        for j in bits:
+            stack = np.concatenate((stack, stack @ squares[j]))
+        if inverse:
+            stack = np.ascontiguousarray(stack.conj().transpose(0, 2, 1))
+        label = f"c-V^k[{j0}:{bits[-1] + 1}]" + ("_dg" if inverse else "")
+        out.append((bits, MultiplexerGate(list(stack), label=label)))
+    return out
+
+
+@lru_cache(maxsize=32)
+def _qft_gates(c: int, inverse: bool) -> QuantumCircuit:
+    gate = QFTGate(c)
+    return (gate.inverse() if inverse else gate.inverse().inverse()).definition
+
+
+def _inverse_qft(c: int) -> QuantumCircuit:
+    """The inverse QFT written out as H, controlled phases and swaps (all native to Aer); shared
+    (compose it with ``copy=False`` or copy it; never modify it)."""
+    return _qft_gates(c, True)
+
+
+def _qft(c: int) -> QuantumCircuit:
+    """The inverse of `_inverse_qft`, instruction for instruction."""
+    return _qft_gates(c, False)
 
 
 
@@ -501,6 +716,21 @@ def inverse_phase_estimation_circuit(oracle: PhaseOracle) -> QuantumCircuit:
         block = QuantumRegister(oracle.n_block_qubits, BLOCK)
         regs.append(block)
     qc = QuantumCircuit(*regs, name="qpe_dg")
+    if oracle.form == "simulation" and oracle.power_matrices is not None:
+        qc.compose(_qft(oracle.clock_qubits), clock[:], inplace=True, copy=False)
+        for bits, gate in reversed(_power_multiplexers(oracle, inverse=True)):
+            qc.append(gate, [*system, *block, *(clock[j] for j in bits)], copy=False)
+        for q in reversed(clock):
+            qc.h(q)
+        return qc
+    if oracle.form == "simulation" and oracle.walk_pieces is not None:
+        qc.compose(_qft(oracle.clock_qubits), clock[:], inplace=True, copy=False)
+        for j in reversed(range(oracle.clock_qubits)):
+            for _ in range(2**j):
+                oracle.walk_pieces.append(qc, system, block, clock[j], inverse=True)
+        for q in reversed(clock):
+            qc.h(q)
+        return qc
     qc.append(QFTGate(oracle.clock_qubits).inverse().inverse(), clock[:])
     inverted: dict[int, Gate] = {}  # one inverse per distinct base gate
     for j in reversed(range(oracle.clock_qubits)):
