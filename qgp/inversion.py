@@ -59,6 +59,7 @@ from qgp.phase_estimation import (
 from qgp.settings import CircuitSettings, Encoding, Evolution, Rotation, choices
 
 __all__ = [
+    "check_inversion_inputs",
     "FLAG",
     "InversionCircuit",
     "build_inversion",
@@ -122,7 +123,7 @@ class InversionCircuit:
         return self.settings.clock_qubits
 
 
-def _check_inputs(A, settings: CircuitSettings, rotation, bounds, form) -> tuple[np.ndarray, float, float]:
+def check_inversion_inputs(A, settings: CircuitSettings, rotation, bounds, form) -> tuple[np.ndarray, float, float]:
     a = check_matrix(A)
     if rotation not in choices(Rotation):
         raise QgpError(f"unknown rotation {rotation!r}; choose one of {choices(Rotation)}")
@@ -247,7 +248,7 @@ def build_inversion(
     ``oracle`` reuses a phase oracle already built for the same A, settings, bounds and form (the
     ``inverse`` and ``inverse_sqrt`` circuits share one).
     """
-    a, lo, hi = _check_inputs(A, settings, rotation, bounds, form)
+    a, lo, hi = check_inversion_inputs(A, settings, rotation, bounds, form)
     m = a.shape[0].bit_length() - 1
     if uncompute is None:
         uncompute = rotation == "inverse"

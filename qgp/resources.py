@@ -51,9 +51,9 @@ from qiskit.circuit import ControlledGate, Gate, Instruction, QuantumCircuit
 
 from qgp.encoding import BLOCK, SYSTEM, check_matrix, pauli_decomposition
 from qgp.errors import QgpError
-from qgp.inversion import FLAG, InversionCircuit, build_inversion
+from qgp.inversion import FLAG, InversionCircuit, build_inversion, check_inversion_inputs
 from qgp.phase_estimation import CLOCK, derived_evolution_time
-from qgp.settings import CircuitSettings, Encoding, Evolution, Rotation, choices
+from qgp.settings import CircuitSettings, Rotation
 
 __all__ = [
     "BASES",
@@ -506,25 +506,8 @@ class GateInversion:
 
 
 def _validated(a: np.ndarray, settings: CircuitSettings, rotation, bounds) -> tuple[float, float]:
-    """The checks `build_inversion` makes, so both refuse the same inputs."""
-    _check_choices(settings, rotation)
-    if settings.evolution == "trotter":
-        if not isinstance(settings.trotter_steps, (int, np.integer)) or settings.trotter_steps < 1:
-            raise QgpError(f"[circuit] trotter_steps must be an integer ≥ 1, got {settings.trotter_steps!r}")
-        if settings.trotter_order not in (1, 2):
-            raise QgpError(f"[circuit] trotter_order must be 1 or 2, got {settings.trotter_order!r}")
-    try:
-        lo, hi = (float(x) for x in bounds)
-    except (TypeError, ValueError):
-        raise QgpError(f"bounds must be a pair (λ_lo, λ_hi), got {bounds!r}") from None
-    if not (np.isfinite(lo) and np.isfinite(hi) and 0 < lo <= hi):
-        raise QgpError(
-            f"eigenvalue bounds must satisfy 0 < λ_lo ≤ λ_hi, got ({lo!r}, {hi!r}); "
-            "A must be positive definite (add noise variance σ²)"
-        )
-    ff = settings.filter_floor
-    if ff is not None and not (np.isfinite(ff) and ff > 0):
-        raise QgpError(f"[circuit] filter_floor must be a positive number, got {ff!r}")
+    """The checks `build_inversion` makes (one shared function), so both refuse the same inputs."""
+    _, lo, hi = check_inversion_inputs(a, settings, rotation, bounds, "gate")
     return lo, hi
 
 
@@ -769,17 +752,6 @@ def _estimate_dict(est: SizeEstimate | None) -> dict:
         "max_oracle_calls": MAX_ORACLE_CALLS,
     }
 
-
-def _check_choices(settings: CircuitSettings, rotation) -> None:
-    if rotation not in choices(Rotation):
-        raise QgpError(f"unknown rotation {rotation!r}; choose one of {choices(Rotation)}")
-    if settings.evolution not in choices(Evolution):
-        raise QgpError(f"unknown [circuit] evolution {settings.evolution!r}; choose one of {choices(Evolution)}")
-    if settings.evolution == "walk" and settings.encoding not in choices(Encoding):
-        raise QgpError(f"unknown [circuit] encoding {settings.encoding!r}; choose one of {choices(Encoding)}")
-    c = settings.clock_qubits
-    if not isinstance(c, (int, np.integer)) or c < 1:
-        raise QgpError(f"[circuit] clock_qubits must be an integer ≥ 1, got {c!r}")
 
 
 def _query_only(a: np.ndarray, settings: CircuitSettings, rotation, bounds, est: SizeEstimate, *, uncompute: bool, prepared: bool, reason: str) -> CircuitResources:
