@@ -124,6 +124,15 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", type=Path, required=True, help="output folder for the figures")
     p.add_argument("--only", nargs="+", metavar="FIG", help="draw only these figures (fig1 … fig7)")
     p.set_defaults(handler=_cmd_figures)
+    p = sub.add_parser(
+        "bench",
+        help="measure qgp's speed on this machine (ratios side by side in one run)",
+        description="Time the amortised strategy against per-point inference, against the exact GP, the "
+        "simulation against qubits, and a sweep with 1 and 2 workers; print a table with the goals beside.",
+    )
+    p.add_argument("--quick", action="store_true", help="smaller cases (under 2 minutes on 2 cores)")
+    p.add_argument("--json", action="store_true", help="print one JSON object instead of a table")
+    p.set_defaults(handler=_cmd_bench)
     return parser
 
 
@@ -269,6 +278,14 @@ def _cmd_results(args) -> int:
 
     n = export_csv(args.store, args.csv, test_points=args.test_points)
     print(f"wrote {n} row(s) to {args.csv}")
+    return 0
+
+
+def _cmd_bench(args) -> int:
+    from .bench import FULL, QUICK, format_table, run_bench
+
+    doc = run_bench(QUICK if args.quick else FULL)
+    print(json.dumps(doc, indent=2) if args.json else format_table(doc))
     return 0
 
 

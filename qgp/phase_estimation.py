@@ -427,6 +427,9 @@ class PhaseOracle:
     repeats: tuple[tuple[Gate, int], ...] | None = field(default=None, repr=False)
     power_matrices: tuple[np.ndarray, ...] | None = field(default=None, repr=False, compare=False)
     walk_pieces: "_WalkPieces | None" = field(default=None, repr=False, compare=False)
+    # Simulation-form pieces built from this oracle (multiplexer stacks), kept for its lifetime:
+    # the inverse and inverse_sqrt circuits and the uncompute all reuse them.
+    _built: dict = field(default_factory=dict, repr=False, compare=False)
 
     def clock_eigenvalues(self) -> np.ndarray:
         """Decoded λ̃ for each clock value k in [0, 2^c)."""
@@ -652,6 +655,9 @@ def _power_multiplexers(oracle: PhaseOracle, inverse: bool = False) -> list[tupl
     the squares V^{2^j}: entry k + 2^i is entry k times V^{2^(j0+i)} (all are powers of V, so
     the order of the factors does not matter). ``inverse``: the conjugate transposes.
     """
+    key = ("multiplexers", inverse)
+    if key in oracle._built:
+        return oracle._built[key]
     squares = oracle.power_matrices
     dim = squares[0].shape[0]
     c = oracle.clock_qubits
@@ -667,6 +673,7 @@ def _power_multiplexers(oracle: PhaseOracle, inverse: bool = False) -> list[tupl
             stack = np.ascontiguousarray(stack.conj().transpose(0, 2, 1))
         label = f"c-V^k[{j0}:{bits[-1] + 1}]" + ("_dg" if inverse else "")
         out.append((bits, MultiplexerGate(list(stack), label=label)))
+    oracle._built[key] = out
     return out
 
 
@@ -739,6 +746,9 @@ def inverse_phase_estimation_circuit(oracle: PhaseOracle) -> QuantumCircuit:
             base, times = oracle.repeats[j]
             base_dg = inverted.setdefault(id(base), base.inverse())
             power_dg = _inverse_repeated(power, base, times, base_dg)
+        elif isinstance(power, UnitaryGate):
+            # What UnitaryGate.inverse() returns (label None), without its two unitarity checks.
+            power_dg = UnitaryGate(np.conj(power.params[0]).T, check_input=False)
         else:
             power_dg = power.inverse()
         qc.append(power_dg, [*system, *block, clock[j]], copy=False)
