@@ -666,7 +666,7 @@ def format_table(doc: dict) -> str:
          f"stored numbers: " + ("identical" if sw["same_stored_numbers"] else
                                 f"max |difference| {_fmt(sw['stored_numbers_max_abs_difference'])}")),
         ("largest_qubits_60s", _fmt(f["largest_qubits_60s"]), goal("largest_qubits_60s") + f"; stopped: {sc['stopped_because']}"),
-        ("peak_memory_mb", _fmt(f["peak_memory_mb"]), "of the largest case (child process ru_maxrss)"),
+        ("peak_memory_mb", _fmt(f["peak_memory_mb"]), "of the largest case (the child process's peak resident memory)"),
         ("copy bandwidth", f"{_fmt(sc['copy_bandwidth_gb_per_s'])} GB/s", "numpy copy, read + write counted"),
     ]
     width = max(len(r[0]) for r in rows)
