@@ -120,16 +120,8 @@ def _reference_with_snapshot(inv: InversionCircuit) -> QuantumCircuit:
     """`reference_circuit` of ``inv`` that also saves the state just before the flag rotation."""
     from qiskit_aer.library import SaveStatevector
 
-    regs = list(inv.circuit.qregs)
-    m = inv.n_system_qubits
-    ref = QuantumRegister(m, REFERENCE)
-    qc = QuantumCircuit(*regs, ref, name=f"{inv.circuit.name}-reference")
-    system = regs[0]
-    for i in range(m):
-        qc.h(ref[i])
-        qc.cx(ref[i], system[i])
-    start = len(qc.data)
-    qc.compose(inv.circuit, qubits=qc.qubits[: inv.circuit.num_qubits], inplace=True, copy=False)
+    qc = reference_circuit(inv)
+    start = len(qc.data) - len(inv.circuit.data)  # the reference's Hadamards and CNOTs come first
     # The save goes in at the rotation's index (inserting beats appending ~100 instructions one by one).
     qc.data.insert(
         start + inv.rotation_start,

@@ -617,12 +617,9 @@ def phase_oracle(
     return trotter_oracle(A, c, t, settings.trotter_steps, settings.trotter_order, form)
 
 
-def phase_estimation_circuit(oracle: PhaseOracle) -> QuantumCircuit:
-    """Phase estimation on registers ``system``, ``clock`` and (walk) ``block``, in that order.
-
-    Hadamards on the clock, clock[j] controls ``oracle.powers[j]``, then the inverse QFT (with
-    its swaps, so clock value k = Σ_j 2^j·clock[j] reads φ·2^c directly).
-    """
+def _qpe_registers(oracle: PhaseOracle, name: str):
+    """An empty circuit on registers ``system``, ``clock`` and (walk) ``block``, and the three
+    registers (``block`` an empty list when the oracle has none)."""
     system = QuantumRegister(oracle.n_system_qubits, SYSTEM)
     clock = QuantumRegister(oracle.clock_qubits, CLOCK)
     regs = [system, clock]
@@ -630,7 +627,16 @@ def phase_estimation_circuit(oracle: PhaseOracle) -> QuantumCircuit:
     if oracle.n_block_qubits:
         block = QuantumRegister(oracle.n_block_qubits, BLOCK)
         regs.append(block)
-    qc = QuantumCircuit(*regs, name="qpe")
+    return QuantumCircuit(*regs, name=name), system, clock, block
+
+
+def phase_estimation_circuit(oracle: PhaseOracle) -> QuantumCircuit:
+    """Phase estimation on registers ``system``, ``clock`` and (walk) ``block``, in that order.
+
+    Hadamards on the clock, clock[j] controls ``oracle.powers[j]``, then the inverse QFT (with
+    its swaps, so clock value k = Σ_j 2^j·clock[j] reads φ·2^c directly).
+    """
+    qc, system, clock, block = _qpe_registers(oracle, "qpe")
     qc.h(clock)
     if oracle.form == "simulation" and oracle.power_matrices is not None:
         for bits, gate in _power_multiplexers(oracle):
@@ -715,14 +721,7 @@ def inverse_phase_estimation_circuit(oracle: PhaseOracle) -> QuantumCircuit:
     controlled walk or Trotter step is inverted once rather than once per repetition (for a
     16-point LCU walk that was most of the build time).
     """
-    system = QuantumRegister(oracle.n_system_qubits, SYSTEM)
-    clock = QuantumRegister(oracle.clock_qubits, CLOCK)
-    regs = [system, clock]
-    block: Sequence = []
-    if oracle.n_block_qubits:
-        block = QuantumRegister(oracle.n_block_qubits, BLOCK)
-        regs.append(block)
-    qc = QuantumCircuit(*regs, name="qpe_dg")
+    qc, system, clock, block = _qpe_registers(oracle, "qpe_dg")
     if oracle.form == "simulation" and oracle.power_matrices is not None:
         qc.compose(_qft(oracle.clock_qubits), clock[:], inplace=True, copy=False)
         for bits, gate in reversed(_power_multiplexers(oracle, inverse=True)):
