@@ -369,13 +369,19 @@ def _peak_rss_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # Linux: kilobytes
 
 
-def _case_in_child(case: dict, timeout: float) -> dict:
-    cmd = [sys.executable, "-m", "qgp.bench", "--case", json.dumps(case)]
+def _child_env() -> dict:
+    """This environment with the folder holding this qgp first on PYTHONPATH (so a child process
+    imports the same qgp, installed or not)."""
     env = dict(os.environ)
     root = str(Path(__file__).resolve().parents[1])
     env["PYTHONPATH"] = root + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+    return env
+
+
+def _case_in_child(case: dict, timeout: float) -> dict:
+    cmd = [sys.executable, "-m", "qgp.bench", "--case", json.dumps(case)]
     try:
-        done = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=env)
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=_child_env())
     except subprocess.TimeoutExpired:
         return {"clock_qubits": case["clock_qubits"], "timed_out": True, "timeout_seconds": timeout}
     if done.returncode != 0:
@@ -539,8 +545,13 @@ def _sweep(s: BenchSettings, say: Progress) -> dict:
             }
         one, two = _stored_numbers(Path(tmp) / "w1.sqlite"), _stored_numbers(Path(tmp) / "w2.sqlite")
         diff = _max_abs_difference(one, two)
+    # What a fresh worker pays before its first point: a Python process importing qgp's pipeline.
+    t0 = time.perf_counter()
+    subprocess.run([sys.executable, "-c", "import qgp.sweeps, qgp.inference"], check=True, env=_child_env())
+    start_up = time.perf_counter() - t0
     return {
         "points": sweep.size,
+        "worker_start_up_seconds": start_up,
         "point": f"demo data (n = 16, 41 test points), per-point strategy, exact oracle, {s.sweep_clock_qubits} "
         "clock qubits; κ varied so every point builds its own circuits",
         "one_worker": out[1],
@@ -549,7 +560,7 @@ def _sweep(s: BenchSettings, say: Progress) -> dict:
         "same_stored_numbers": one == two,
         "stored_numbers_max_abs_difference": diff,
         "note": "1 worker runs inline with the simulator on all cores; 2 workers are spawned processes with 1 "
-        "thread each (their start-up, ~3–4 s for the qiskit import, is included). Stored numbers may differ in "
+        f"thread each (their start-up is included: a fresh process importing qgp took {start_up:.1f} s here). Stored numbers may differ in "
         "the last bits: the exact GP's BLAS runs with 2 threads inline and 1 in a worker. These points simulate "
         "< 20 qubits, where Aer runs one thread (qgp.simulate.PARALLEL_THRESHOLD_QUBITS), so the second "
         "worker has a core to itself; points that already use both cores cannot gain from a second worker",
