@@ -338,6 +338,7 @@ def _run_case(case: dict) -> dict:
     inv = build_inversion(A, circuit, "inverse", bounds, prepare=yhat, form="simulation")
     t1 = time.perf_counter()
     qc = inv.circuit.copy_empty_like()
+    qc.global_phase = 0.0  # compose adds the circuit's phase again
     qc.compose(inv.circuit, inplace=True, copy=False)
     qc.append(SaveStatevector(qc.num_qubits), qc.qubits)
     result = simulator().run(qc).result()

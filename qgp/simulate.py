@@ -16,6 +16,7 @@ from functools import lru_cache
 
 import numpy as np
 from qiskit import QuantumCircuit
+from qiskit.circuit import Gate
 
 from .errors import QgpError
 
@@ -119,9 +120,45 @@ def _native_names(sim) -> frozenset[str]:
 
 
 def is_native(circuit: QuantumCircuit, sim=None) -> bool:
-    """Whether Aer can run ``circuit`` as it is (every instruction one it applies natively)."""
+    """Whether Aer can run ``circuit`` as it is (every instruction one it applies natively).
+
+    A custom gate (a plain ``Gate`` with a definition, e.g. one read from an OpenQASM file) is
+    never native, even when its name is one of Aer's: Aer would apply its own instruction of that
+    name (a file's gate called ``unitary`` is not a matrix gate).
+    """
     names = _native_names(sim or simulator())
-    return all(inst.operation.name in names for inst in circuit.data)
+    return all(inst.operation.name in names and type(inst.operation) is not Gate for inst in circuit.data)
+
+
+def _unshadowed(circuit: QuantumCircuit, names: frozenset[str]) -> QuantumCircuit:
+    """``circuit`` with every custom gate named like one of Aer's instructions renamed, at any
+    depth of its definitions: the transpiler would otherwise keep it as that instruction (a file's
+    gate called ``unitary`` reaches Aer as a matrix gate without a matrix)."""
+    memo: dict[tuple[str, int], Gate] = {}
+
+    def gate(op):
+        if type(op) is not Gate or op.definition is None:
+            return op
+        key = (op.name, id(op.definition))
+        if key not in memo:
+            body = circ(op.definition)
+            new = op
+            if op.name in names or body is not op.definition:
+                new = Gate(op.name + "_custom" if op.name in names else op.name, op.num_qubits, op.params, label=op.label)
+                new.definition = body
+            memo[key] = new
+        return memo[key]
+
+    def circ(qc: QuantumCircuit) -> QuantumCircuit:
+        ops = [gate(inst.operation) for inst in qc.data]
+        if all(new is inst.operation for new, inst in zip(ops, qc.data)):
+            return qc
+        out = qc.copy_empty_like()  # global phase included, and _append adds none
+        for new, inst in zip(ops, qc.data):
+            out._append(inst.replace(operation=new))
+        return out
+
+    return circ(circuit)
 
 
 def prepare_for_simulator(circuits: list[QuantumCircuit], sim=None) -> list[QuantumCircuit]:
@@ -130,7 +167,8 @@ def prepare_for_simulator(circuits: list[QuantumCircuit], sim=None) -> list[Quan
     out = list(circuits)
     todo = [i for i, c in enumerate(out) if not is_native(c, sim)]
     if todo:
-        done = _pass_manager(sim).run([out[i] for i in todo])
+        names = _native_names(sim)
+        done = _pass_manager(sim).run([_unshadowed(out[i], names) for i in todo])
         for i, c in zip(todo, done if isinstance(done, list) else [done]):
             out[i] = c
     return out
@@ -142,6 +180,7 @@ def _with_final_save(circuit: QuantumCircuit) -> QuantumCircuit:
     from qiskit_aer.library import SaveStatevector
 
     out = circuit.copy_empty_like()
+    out.global_phase = 0.0  # copy_empty_like kept the phase and compose adds it: count it once
     out.compose(circuit, inplace=True, copy=False)
     out.append(SaveStatevector(out.num_qubits), out.qubits, copy=False)
     return out

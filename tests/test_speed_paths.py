@@ -336,3 +336,42 @@ def test_bench_quick_json_runs(capsys):
     assert doc["amortised"]["per_point_naive"]["max_abs_difference"] < TOL
     assert doc["amortised"]["batched_max_abs_difference"] < TOL
     assert doc["sweep"]["stored_numbers_max_abs_difference"] < 1e-9
+
+
+# -- the simulator front end -------------------------------------------------------------------------
+
+
+@pytest.mark.parametrize("native", [True, False], ids=["native", "transpiled"])
+def test_global_phase_is_counted_once(native):
+    # Reference: qiskit's Statevector. The save appended without copying the circuit once added
+    # the circuit's global phase twice; transpiling (the gate form) sets a global phase.
+    qc = QuantumCircuit(2, global_phase=0.7)
+    qc.h(0)
+    qc.cx(0, 1)
+    if native:
+        qc.rz(0.3, 1)
+    else:
+        qc.append(UCRYGate([0.4, 1.1]), [0, 1])  # not one of Aer's instructions: transpiled
+    assert is_native(qc) is native
+    worst = float(np.max(np.abs(run_statevector(qc) - Statevector(qc).data)))
+    assert worst < TOL, f"worst residual {worst:.3g}"
+
+
+def test_custom_gate_named_like_an_aer_instruction_is_unrolled():
+    # An OpenQASM file may define a gate called `unitary` (qgp's own export does): Aer must run
+    # its body, not its own matrix instruction of that name, at the top level and inside
+    # another gate's body. Reference: qiskit's Statevector.
+    from qiskit import qasm3
+
+    text = """OPENQASM 3.0;
+include "stdgates.inc";
+gate unitary a, b { h a; cx a, b; }
+gate pair a, b { unitary b, a; x b; }
+qubit[2] q;
+pair q[1], q[0];
+unitary q[0], q[1];
+"""
+    qc = qasm3.loads(text)
+    assert not is_native(qc)
+    worst = float(np.max(np.abs(run_statevector(qc) - Statevector(qc).data)))
+    assert worst < TOL, f"worst residual {worst:.3g}"
