@@ -234,8 +234,9 @@ def shot_sampling(problem, shots: int = 10_000, repeats: int = 5, subset: int = 
         tp,
         tf,
         None,
-        f"{shots} shots × {m} points; vectorised counts' largest deviation from N·p: "
-        f"{float(np.max(np.abs(counts - shots * probs))):.0f} (binomial sd ≤ {np.sqrt(shots * 0.25):.0f})",
+        f"{shots} shots × {m} points; vectorised counts against N·p: largest |z| = "
+        f"{float(np.max(np.abs(counts - shots * probs) / np.sqrt(shots * probs * (1 - probs)))):.2f} "
+        f"over {counts.size} counts (binomial z-score)",
     )
 
 
