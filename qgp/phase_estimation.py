@@ -86,9 +86,11 @@ Form = Literal["gate", "simulation"]
 _MAX_FUSED_QUBITS = 10
 
 # Largest stack of matrices in one phase-estimation multiplexer (2^g blocks of 2^t × 2^t complex):
-# longer clock registers are split into runs of g qubits, one multiplexer each. 32 MB keeps the
-# copies Aer and qiskit make of the parameters well below any statevector worth simulating.
-_MAX_MULTIPLEXER_BYTES = 1 << 25
+# longer clock registers are split into runs of g qubits, one multiplexer each. A stack that sits
+# in a core's L2 cache (1 MB here) costs Aer less to convert and to apply than one long stack:
+# against 32 MB, 256 KB made per-point inference (n = 16, c = 8, 123 circuits in one job) 1.22×
+# faster, left the amortised run as it was, and the 25-qubit inversion 1.02× faster (same run).
+_MAX_MULTIPLEXER_BYTES = 1 << 18
 
 
 def derived_evolution_time(lambda_hi: float, clock_qubits: int) -> float:
