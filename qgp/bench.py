@@ -645,9 +645,7 @@ def _fmt(x, digits: int = 3) -> str:
         return "yes" if x else "no"
     if isinstance(x, int):
         return str(x)
-    if abs(x) >= 1e4 or (abs(x) < 1e-3 and x != 0):
-        return f"{x:.{digits}g}"
-    return f"{x:.{digits}g}" if abs(x) < 100 else f"{x:.0f}"
+    return f"{x:.0f}" if 100 <= abs(x) < 1e4 else f"{x:.{digits}g}"
 
 
 def format_table(doc: dict) -> str:
