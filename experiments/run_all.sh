@@ -27,7 +27,7 @@ for entry in "${figures[@]}"; do
   read -r sweep name <<<"$entry"
   start=$SECONDS
   qgp sweep "$here/$sweep.toml" --store "$run_dir/$sweep.sqlite" --workers "$workers"
-  qgp figures "$run_dir/$sweep.sqlite" --out "$run_dir/$sweep"
+  qgp figures "$run_dir/$sweep.sqlite" --out "$run_dir/$sweep" --force   # its own folder: redrawn on every run
   cp "$run_dir/$sweep/$name.csv" "$run_dir/$sweep/$name.txt" "$here/results/"
   echo "$sweep: $((SECONDS - start)) s (sweep and figures) -> $run_dir/$sweep/$name.{pdf,png}"
 done

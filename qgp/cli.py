@@ -60,8 +60,8 @@ def build_parser() -> argparse.ArgumentParser:
         "summary.json and figures/ into --out.",
     )
     _config_arg(p)
-    p.add_argument("--out", type=Path, required=True, help="output folder (created; must not hold an earlier run)")
-    p.add_argument("--force", action="store_true", help="overwrite an earlier run in --out")
+    p.add_argument("--out", type=Path, required=True, help="output folder (created if missing; files of the same names are never replaced without --force)")
+    p.add_argument("--force", action="store_true", help="overwrite predictions.csv, summary.json, COLUMNS.txt and figures/ in --out")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     p.set_defaults(handler=_cmd_run)
 
@@ -81,6 +81,7 @@ def build_parser() -> argparse.ArgumentParser:
         description="Run the bundled demo config (an invented ice-thickness transect) end to end.",
     )
     p.add_argument("--out", type=Path, default=Path("qgp-demo"), help="output folder (default: ./qgp-demo)")
+    p.add_argument("--force", action="store_true", help="overwrite the files of an earlier demo run in --out")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     p.set_defaults(handler=_cmd_demo)
 
@@ -123,6 +124,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("store", type=Path, help="result store (SQLite) written by qgp sweep")
     p.add_argument("--out", type=Path, required=True, help="output folder for the figures")
     p.add_argument("--only", nargs="+", metavar="FIG", help="draw only these figures (fig1 … fig7)")
+    p.add_argument("--force", action="store_true", help="overwrite figure files already in --out")
     p.set_defaults(handler=_cmd_figures)
     p = sub.add_parser(
         "bench",
@@ -139,7 +141,7 @@ def build_parser() -> argparse.ArgumentParser:
 def _cmd_figures(args) -> int:
     from .sweep_figures import figures_command
 
-    return figures_command(args.store, args.out, only=args.only)
+    return figures_command(args.store, args.out, only=args.only, force=args.force)
 
 
 def _fmt(x) -> str:
@@ -219,7 +221,7 @@ def _cmd_export(args) -> int:
 def _cmd_demo(args) -> int:
     from .demo import demo_config_path
 
-    doc, out = _run_to(demo_config_path(), args.out, force=True, quiet=args.quiet)
+    doc, out = _run_to(demo_config_path(), args.out, force=args.force, quiet=args.quiet)
     rows = [
         ("condition number κ", _fmt(doc["condition_number"])),
         ("qubits (total)", f"{doc['total_qubits']} = system {doc['system_qubits']} + clock {doc['clock_qubits']} "

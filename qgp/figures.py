@@ -13,6 +13,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
+from .files import atomic_open  # noqa: E402
 from .filter_model import filter_response  # noqa: E402
 from .inference import InferenceResult  # noqa: E402
 
@@ -43,12 +44,15 @@ def figure_style():
 
 
 def save_figure(fig, stem: Path) -> list[Path]:
-    """Write ``stem``.pdf (vector) and ``stem``.png (300 dpi); close the figure."""
+    """Write ``stem``.pdf (vector) and ``stem``.png (300 dpi), each atomically; close the figure."""
     stem.parent.mkdir(parents=True, exist_ok=True)
     paths = [stem.with_suffix(".pdf"), stem.with_suffix(".png")]
-    fig.savefig(paths[0])
-    fig.savefig(paths[1], dpi=300)
-    plt.close(fig)
+    try:
+        for path, dpi in zip(paths, ("figure", 300)):
+            with atomic_open(path, "wb") as fh:
+                fig.savefig(fh, format=path.suffix[1:], dpi=dpi)
+    finally:
+        plt.close(fig)
     return paths
 
 

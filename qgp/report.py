@@ -14,12 +14,17 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import QgpError
+from .files import atomic_open, atomic_write_text, check_outputs
 from .inference import InferenceResult
 from .inspection import SIMULATION_CAVEAT
 from .settings import Config
 
-__all__ = ["PREDICTION_COLUMNS", "prediction_columns", "write_predictions", "summary_document", "write_summary", "versions", "config_document", "to_json", "run_config"]
+__all__ = ["PREDICTIONS_FILE", "SUMMARY_FILE", "COLUMN_GUIDE_FILE", "FIGURES_DIR", "run_outputs", "config_inputs", "provenance", "PREDICTION_COLUMNS", "prediction_columns", "write_predictions", "summary_document", "write_summary", "versions", "config_document", "to_json", "run_config"]
+
+PREDICTIONS_FILE = "predictions.csv"
+SUMMARY_FILE = "summary.json"
+COLUMN_GUIDE_FILE = "COLUMNS.txt"
+FIGURES_DIR = "figures"
 
 #: The contract columns after the input columns (the SE pair only with shots).
 PREDICTION_COLUMNS = ("mean_exact", "variance_exact", "mean_quantum", "variance_quantum")
@@ -72,12 +77,12 @@ def write_predictions(result: InferenceResult, path: Path) -> None:
     ]
     if p.y_test is not None:
         columns.append(p.y_test)
-    with open(path, "w", newline="") as fh:
+    with atomic_open(path, "w", newline="") as fh:
         w = csv.writer(fh)
         w.writerow(prediction_columns(result))
         for row in zip(*columns):
             w.writerow([str(int(v)) if isinstance(v, (np.integer,)) else _num(v) for v in row])
-    (path.parent / "COLUMNS.txt").write_text(_COLUMN_GUIDE.format(caveat=SIMULATION_CAVEAT))
+    atomic_write_text(path.parent / COLUMN_GUIDE_FILE, _COLUMN_GUIDE.format(caveat=SIMULATION_CAVEAT))
 
 
 def versions() -> dict[str, str]:
@@ -123,8 +128,56 @@ def config_document(cfg: Config | None) -> dict | None:
     return doc
 
 
+_FORM = (
+    "the simulation form of the circuits (controlled oracle powers as multiplexers of fused matrices, the "
+    "rotation as one multiplexed gate): the same operator as the gate form to 1e-10 (tests), which is what "
+    "`resources` counts and `qgp export` writes"
+)
+
+
+def provenance(result: InferenceResult) -> dict[str, str]:
+    """What produced each reported quantity: which circuit Aer simulated, what numpy computed.
+
+    The `summary.json` key ``provenance``; docs/method.md ("What is simulated") explains it.
+    """
+    shots = result.readout.shots
+    if result.readout.strategy == "amortised":
+        out = {
+            "mean_quantum": "Aer statevector run of the `inverse` circuit with a reference register entangled with "
+            "`system` (one run, or one per block of reference columns when split for memory; see simulation_runs): "
+            "it yields the post-selected operator B ≈ C·Ã⁻¹; each test point's Hadamard-test probabilities P₀, P₁ "
+            "are then computed in numpy from B·ŷ and k̂* (the Hadamard-test circuit itself is not simulated)",
+            "variance_quantum": "the same Aer run saves the state just before the flag rotation; the `inverse_sqrt` "
+            "rotation is applied to that saved state exactly in numpy (amplitude sin(θ_k/2) on flag = 1), giving "
+            "M = E†E and P(flag = 1) = k̂*ᵀMk̂* (the `inverse_sqrt` circuit is not simulated separately)",
+            "variance_quantum_hadamard": "numpy, from the same B: k̂*ᵀBk̂*",
+            "success_probability_inversion": "numpy, from the same B: ‖B·ŷ‖²",
+        }
+        sampled = "numpy (np.random.Generator seeded with [readout] seed) from the exact outcome probabilities"
+    else:
+        out = {
+            "mean_quantum": "Aer statevector run of one Hadamard-test circuit per test point (probe qubit, "
+            "ŷ and k̂* prepared, the `inverse` circuit); P₀, P₁ read from each final statevector",
+            "variance_quantum": "Aer statevector run of one `inverse_sqrt` circuit per test point on k̂*; P(flag = 1) "
+            "read from each final statevector",
+            "variance_quantum_hadamard": "Aer statevector run of one Hadamard-test circuit per test point with k̂* "
+            "on both sides",
+            "success_probability_inversion": "Aer statevector run of the `inverse` circuit on ŷ",
+        }
+        sampled = "Aer (measured circuits, one job, seeded with [readout] seed)"
+    out["shots"] = f"counts drawn by {sampled}" if shots > 0 else "none: exact outcome probabilities (shots = 0)"
+    out["simulated_form"] = _FORM
+    out["error_budget"] = (
+        "stage phase_estimation_and_filter: the closed-form filter model in numpy (no simulation); stage oracle: "
+        "the simulated circuits' exact probabilities; stage shots: the sampled estimates"
+    )
+    out["mean_exact"] = out["variance_exact"] = "the exact GP in numpy/scipy (Cholesky; Rasmussen & Williams Alg. 2.1)"
+    return out
+
+
 def summary_document(result: InferenceResult, cfg: Config | None = None, resources: dict | None = None) -> dict:
     doc = result.summary()
+    doc["provenance"] = provenance(result)
     doc["resources"] = resources if resources is not None else result_resources(result)
     doc["versions"] = versions()
     doc["config"] = config_document(cfg)
@@ -142,30 +195,42 @@ def result_resources(result: InferenceResult) -> dict:
 
 def write_summary(result: InferenceResult, path: Path, cfg: Config | None = None) -> dict:
     doc = summary_document(result, cfg)
-    path.write_text(json.dumps(doc, indent=2) + "\n")
+    atomic_write_text(path, json.dumps(doc, indent=2) + "\n")
     return doc
+
+
+def run_outputs() -> tuple[str, ...]:
+    """Every file `run_config` writes, relative to its output folder."""
+    figures = [f"{FIGURES_DIR}/{stem}{ext}" for stem in ("prediction", "filter") for ext in (".pdf", ".png")]
+    return (PREDICTIONS_FILE, SUMMARY_FILE, COLUMN_GUIDE_FILE, *figures)
+
+
+def config_inputs(cfg: Config) -> list[Path]:
+    """The files a config reads (the config itself and its data), which no output may replace."""
+    files = [cfg.source, cfg.data.train, cfg.data.test]
+    return [Path(f) for f in files if f is not None]
 
 
 def run_config(cfg: Config, out: Path, *, overwrite: bool = False, quiet: bool = False) -> tuple[dict, Path]:
     """`qgp run`: problem → inference → predictions.csv, summary.json, figures/ in ``out``.
 
-    An earlier run in ``out`` is never overwritten unless ``overwrite``; the check runs first.
+    Before any work, refuses to replace any file a run writes (not only an earlier run's) unless
+    ``overwrite``; every file is written atomically (temporary name, then rename), and summary.json
+    last, so a folder with a summary.json holds a complete run.
     """
     from .figures import run_figures
     from .inference import infer
     from .problem import problem_from_config
 
-    out = Path(out)
-    if (out / "summary.json").exists() and not overwrite:
-        raise QgpError(f"{out} already holds a run (summary.json); choose another --out or pass --force to overwrite it")
+    out = check_outputs(out, run_outputs(), force=overwrite, inputs=config_inputs(cfg))
     problem = problem_from_config(cfg)
     result = infer(problem, cfg.circuit, cfg.readout, progress=None if quiet else _progress)
     out.mkdir(parents=True, exist_ok=True)
-    write_predictions(result, out / "predictions.csv")
+    write_predictions(result, out / PREDICTIONS_FILE)
     if not quiet:
         _progress("drawing figures")
-    run_figures(result, out / "figures")
-    doc = write_summary(result, out / "summary.json", cfg)
+    run_figures(result, out / FIGURES_DIR)
+    doc = write_summary(result, out / SUMMARY_FILE, cfg)
     return doc, out
 
 
