@@ -17,6 +17,8 @@ import numpy as np
 
 from .errors import QgpError
 from .settings import (
+    MAX_ABS_VALUE,
+    MAX_SHOTS,
     CircuitSettings,
     Config,
     DataSpec,
@@ -170,6 +172,8 @@ def _parse_data(v: _Validator, t: dict, base_dir: Path) -> DataSpec:
         if rel is None:
             continue
         p = (base_dir / rel).resolve()
+        if p.is_dir():
+            raise v.fail("data", key, f"{p} is a folder, not a CSV file; name the file inside it")
         if not p.is_file():
             raise v.fail("data", key, f"file {p} does not exist; the path is relative to the config file")
         paths[key] = p
@@ -253,7 +257,7 @@ def _parse_readout(v: _Validator, t: dict) -> ReadoutSettings:
     d = ReadoutSettings()
     cap = v.number(t, "readout", "memory_cap_gib", None, positive=True)
     return ReadoutSettings(
-        shots=v.integer(t, "readout", "shots", d.shots, minimum=0),
+        shots=v.integer(t, "readout", "shots", d.shots, minimum=0, maximum=MAX_SHOTS),
         seed=v.integer(t, "readout", "seed", d.seed, minimum=0),
         strategy=v.choice(t, "readout", "strategy", d.strategy, Strategy),
         memory_cap_bytes=None if cap is None else int(cap * 2**30),
@@ -275,7 +279,8 @@ class Dataset:
 def read_csv(path: Path, target: str, *, target_required: bool = True) -> tuple[np.ndarray, np.ndarray | None, tuple[str, ...]]:
     """Parse a numeric CSV with a header row into (X, y or None, input column names)."""
     try:
-        with open(path, newline="", encoding="utf-8") as fh:
+        # utf-8-sig: spreadsheet programs start a UTF-8 CSV with a byte-order mark.
+        with open(path, newline="", encoding="utf-8-sig") as fh:
             rows = list(csv.reader(fh))
     except UnicodeDecodeError:
         raise QgpError(f"{path} is not a UTF-8 text CSV file; export it as CSV") from None
@@ -307,6 +312,11 @@ def read_csv(path: Path, target: str, *, target_required: bool = True) -> tuple[
             if not math.isfinite(x):
                 raise QgpError(
                     f"{path}, row {i}, column '{header[j]}': value {cell} is not finite; fix or remove the row"
+                )
+            if abs(x) > MAX_ABS_VALUE:
+                raise QgpError(
+                    f"{path}, row {i}, column '{header[j]}': |{cell}| > {MAX_ABS_VALUE:g}, whose square overflows "
+                    "double precision; rescale the column (divide it by a power of ten) and the kernel with it"
                 )
             values[i - 2, j] = x
     in_idx = [header.index(c) for c in inputs]

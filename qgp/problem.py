@@ -17,7 +17,7 @@ from .errors import QgpError
 from .gp import ExactGP, condition, fit_ml2
 from .kernels import Kernel, make_kernel
 from .levers import noise_for_condition
-from .settings import Config
+from .settings import MAX_ABS_VALUE, Config
 from .system import (
     EXACT_EIGEN_LIMIT,
     SystemDiagnostics,
@@ -139,6 +139,7 @@ def validate_arrays(X, y, X_test=None, y_test=None):
         bad = np.argwhere(~np.isfinite(arr))
         if bad.size:
             raise QgpError(f"{name} has a non-finite value at index {tuple(bad[0])}; remove or fix that point")
+        _check_magnitude(name, arr)
     if X_test is None:
         X_test = X.copy()
     X_test = _as_2d(X_test, "X_test")
@@ -146,11 +147,21 @@ def validate_arrays(X, y, X_test=None, y_test=None):
         raise QgpError(f"X_test has {X_test.shape[1]} input column(s) but X has {X.shape[1]}; they must match")
     if not np.all(np.isfinite(X_test)):
         raise QgpError("X_test has a non-finite value; remove or fix that point")
+    _check_magnitude("X_test", X_test)
     if y_test is not None:
         y_test = np.asarray(y_test, dtype=float)
         if y_test.shape != (X_test.shape[0],) or not np.all(np.isfinite(y_test)):
             raise QgpError(f"y_test must be finite with one value per row of X_test ({X_test.shape[0]})")
     return X, y, X_test, y_test
+
+
+def _check_magnitude(name: str, arr: np.ndarray) -> None:
+    big = np.argwhere(np.abs(arr) > MAX_ABS_VALUE)
+    if big.size:
+        raise QgpError(
+            f"{name} has |value| > {MAX_ABS_VALUE:g} at index {tuple(int(i) for i in big[0])}, whose square overflows "
+            "double precision; rescale it (divide by a power of ten) and the kernel with it"
+        )
 
 
 def _check_duplicates(X: np.ndarray, noise_variance: float) -> None:

@@ -12,6 +12,8 @@ from pathlib import Path
 from typing import Literal, get_args
 
 __all__ = [
+    "MAX_ABS_VALUE",
+    "MAX_SHOTS",
     "KernelFamily",
     "Encoding",
     "Evolution",
@@ -38,6 +40,14 @@ TrotterOrder = Literal[1, 2]
 def choices(literal_type) -> tuple:
     """The allowed values of a ``Literal`` type, for validation and error messages."""
     return get_args(literal_type)
+
+
+#: Largest |value| read from a CSV: GP sums of squares (‖y‖², distances²) overflow float64 near
+#: √(1.8e308) ≈ 1.3e154; 1e150 leaves room for sums over 10⁴ rows.
+MAX_ABS_VALUE = 1e150
+
+#: Most shots per test point: counts stay exact in float64 (2⁵³) and fit numpy's C long.
+MAX_SHOTS = 2**53
 
 
 @dataclass(frozen=True)
