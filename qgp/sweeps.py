@@ -19,8 +19,11 @@ is the product of the [axes] in file order, then the [paired] group, the last va
 the file that names them (the base config, or the sweep file for an inline base and for axis
 values). Every point is validated before any runs.
 
-Execution: the parent process owns the store and is its only writer; points run inline
-(``workers=1``), in a local process pool, or on a Dask cluster, and come back as JSON-ready dicts.
+Execution: the parent process owns the store and is its only writer (it holds the store's lock,
+``STORE.lock``, for the whole run); points run inline (``workers=1``), in a local process pool, or
+on a Dask cluster, and come back as JSON-ready dicts. The data files are read once, when the sweep
+is loaded: their bytes (and SHA-256, recorded in the store) are the snapshot every point uses, in
+every execution mode, so a file edited during a sweep is never mixed in.
 """
 
 from __future__ import annotations
@@ -47,12 +50,16 @@ from typing import Any, Callable, Iterator, Literal, Mapping
 from .config import _SECTIONS as _CONFIG_KEYS  # the config's key list is the one source of valid keys
 from .config import parse_config
 from .errors import QgpError
+from .files import atomic_open, check_output_file, same_file
 from .store import (
     GridEntry,
     StoreStatus,
     bind_store,
     canonical_json,
+    check_store_path,
     json_hash,
+    lock_path,
+    lock_store,
     open_store,
     utc_now,
 )
@@ -133,6 +140,9 @@ class Sweep:
     paired: tuple[tuple[str, tuple[Any, ...]], ...]
     points: tuple[GridPoint, ...]
     data_sha256: Mapping[str, str] = field(default_factory=dict)
+    #: The data files' bytes as read when the sweep was loaded (``data_sha256`` is their hash):
+    #: the snapshot every point of the run uses.
+    data: Mapping[str, bytes] = field(default_factory=dict, repr=False, compare=False)
 
     @property
     def size(self) -> int:
@@ -160,6 +170,8 @@ class SweepReport:
     mode: ExecutionMode
     workers: int
     threads_per_worker: int
+    #: Data files whose contents on disk differ from the snapshot the points used, at the end.
+    data_changed: tuple[str, ...] = ()
 
 
 # -- loading -------------------------------------------------------------------------------------
@@ -168,6 +180,8 @@ class SweepReport:
 def load_sweep(path: str | Path) -> Sweep:
     """Read and validate a sweep file; every grid point's config is validated before returning."""
     path = Path(path)
+    if path.is_dir():
+        raise QgpError(f"sweep file {path} is a folder; name the sweep's TOML file, e.g. {path / 'sweep.toml'}")
     if not path.is_file():
         raise QgpError(f"sweep file {path} does not exist; check the path")
     try:
@@ -224,6 +238,7 @@ def parse_sweep(raw: Mapping[str, Any], *, base_dir: Path, source: Path | None =
         points.append(GridPoint(index, label, config, cjson, json_hash(cjson)))
 
     data_files = sorted({p for pt in points for p in _data_paths(pt.config)})
+    snapshot = {p: _read_data_file(p, where) for p in data_files}
     text = text if text is not None else canonical_json(dict(raw))
     return Sweep(
         source=None if source is None else Path(source).resolve(),
@@ -232,7 +247,8 @@ def parse_sweep(raw: Mapping[str, Any], *, base_dir: Path, source: Path | None =
         axes=tuple((k, tuple(v)) for k, v in axes.items()),
         paired=tuple((k, tuple(v)) for k, v in paired.items()),
         points=tuple(points),
-        data_sha256={p: _file_sha256(Path(p)) for p in data_files},
+        data_sha256={p: hashlib.sha256(blob).hexdigest() for p, blob in snapshot.items()},
+        data=snapshot,
     )
 
 
@@ -242,6 +258,8 @@ def _load_base(raw: Mapping[str, Any], where: str, sweep_dir: Path) -> dict[str,
     base = raw["base"]
     if isinstance(base, str):
         path = (sweep_dir / base).resolve()
+        if path.is_dir():
+            raise QgpError(f"{where}: base config {path} is a folder; name the config's TOML file inside it")
         if not path.is_file():
             raise QgpError(f"{where}: base config {path} does not exist; base is relative to the sweep file")
         try:
@@ -327,6 +345,14 @@ def _data_paths(config: Mapping[str, Any]) -> list[str]:
     return [data[k] for k in _PATH_KEYS if isinstance(data.get(k), str)]
 
 
+def _read_data_file(path: str, where: str) -> bytes:
+    """One read of a data file: the snapshot the whole sweep uses (and hashes)."""
+    try:
+        return Path(path).read_bytes()
+    except OSError as exc:
+        raise QgpError(f"{where}: cannot read data file {path} ({exc.strerror}); check the path and permissions") from None
+
+
 def _file_sha256(path: Path) -> str:
     h = hashlib.sha256()
     with open(path, "rb") as fh:
@@ -342,7 +368,8 @@ def compute_point(task: Mapping[str, Any]) -> dict[str, Any]:
     """Run one grid point and return a JSON-ready result; never raises for a failing point.
 
     ``task``: grid_index, config (nested dicts, data paths absolute), threads (Aer threads or
-    None), data (optional {path: bytes}, shipped to workers that may not share the file system).
+    None), data (optional {path: bytes}: the sweep's snapshot of its data files, used instead of
+    the files on disk, which may have changed since the sweep started or be on another machine).
     """
     from .report import summary_document, to_json, versions
     from .simulate import set_threads
@@ -350,6 +377,7 @@ def compute_point(task: Mapping[str, Any]) -> dict[str, Any]:
     started = utc_now()
     t0 = time.perf_counter()
     out: dict[str, Any] = {"grid_index": int(task["grid_index"]), "started": started, "versions": versions()}
+    local: dict[str, str] = {}
     try:
         threads = task.get("threads")
         if threads is None:
@@ -358,19 +386,23 @@ def compute_point(task: Mapping[str, Any]) -> dict[str, Any]:
             set_threads(threads)
         config = copy.deepcopy(dict(task["config"]))
         if task.get("data"):
-            _materialise_data(config, task["data"])
+            local = _materialise_data(config, task["data"])
         from .inference import infer
         from .problem import problem_from_config
 
         cfg = parse_config(config, base_dir=Path.cwd(), source=None)
         result = infer(problem_from_config(cfg), cfg.circuit, cfg.readout, progress=None)
         summary = summary_document(result, cfg)
+        table = summary.get("config", {}).get("data", {})
+        for key in _PATH_KEYS:  # the user's file names, not the snapshot copies
+            if table.get(key) in local:
+                table[key] = local[table[key]]
         out.update(status="done", error=None, traceback=None, summary=summary, test_points=to_json(_test_rows(result)))
     except Exception as exc:  # a failing point is data, not a crash: record it and go on
         out.update(
             status="failed",
-            error=_error_text(exc),
-            traceback=None if isinstance(exc, QgpError) else traceback.format_exc(),
+            error=_unmap(_error_text(exc), local),
+            traceback=None if isinstance(exc, QgpError) else _unmap(traceback.format_exc(), local),
             summary=None,
             test_points=[],
         )
@@ -410,22 +442,55 @@ def _test_rows(result) -> list[dict[str, Any]]:
     return rows
 
 
-def _materialise_data(config: dict[str, Any], data: Mapping[str, bytes]) -> None:
-    """Write shipped data files to this machine's temp folder and point the config at them."""
-    folder = Path(tempfile.gettempdir()) / "qgp-sweep-data"
-    folder.mkdir(parents=True, exist_ok=True)
+_private_folder: Path | None = None
+
+
+def _snapshot_folder() -> Path:
+    """This user's folder of data snapshots (content-addressed, so shared by sweeps and workers)."""
+    global _private_folder
+    uid = getattr(os, "getuid", lambda: None)()
+    folder = Path(tempfile.gettempdir()) / ("qgp-sweep-data" if uid is None else f"qgp-sweep-data-{uid}")
+    folder.mkdir(mode=0o700, parents=True, exist_ok=True)
+    if uid is not None and folder.stat().st_uid != uid:  # someone else's folder: use a private one
+        if _private_folder is None:
+            _private_folder = Path(tempfile.mkdtemp(prefix="qgp-sweep-data-"))
+        return _private_folder
+    return folder
+
+
+#: Snapshot files this process has written or checked (path → sha256): checked once per process.
+_checked_snapshots: dict[str, str] = {}
+
+
+def _materialise_data(config: dict[str, Any], data: Mapping[str, bytes]) -> dict[str, str]:
+    """Write the snapshot's data files (once per machine, named by their SHA-256) and point the
+    config at them. Returns {snapshot path: original path}, to name the originals in errors."""
     table = config.get("data", {})
+    local: dict[str, str] = {}
     for key in _PATH_KEYS:
         original = table.get(key)
         if not isinstance(original, str) or original not in data:
             continue
         blob = data[original]
-        target = folder / f"{hashlib.sha256(blob).hexdigest()}{Path(original).suffix}"
-        if not target.exists():
-            tmp = target.with_name(f"{target.name}.{os.getpid()}.tmp")
-            tmp.write_bytes(blob)
-            os.replace(tmp, target)  # atomic: concurrent workers never read a half-written file
+        digest = hashlib.sha256(blob).hexdigest()
+        target = _snapshot_folder() / f"{digest}{Path(original).suffix}"
+        if _checked_snapshots.get(str(target)) != digest or not target.is_file():
+            # An existing file of that name is used only if its contents are the snapshot's.
+            if not (target.is_file() and _file_sha256(target) == digest):
+                tmp = target.with_name(f"{target.name}.{os.getpid()}.{threading.get_ident()}.tmp")
+                tmp.write_bytes(blob)
+                os.replace(tmp, target)  # atomic: concurrent workers never read a half-written file
+            _checked_snapshots[str(target)] = digest
         table[key] = str(target)
+        local[str(target)] = original
+    return local
+
+
+def _unmap(text: str, local: Mapping[str, str]) -> str:
+    """Name the user's data files, not their snapshot copies, in a failing point's message."""
+    for copy_path, original in local.items():
+        text = text.replace(copy_path, original)
+    return text
 
 
 def _dask_worker_threads() -> int | None:
@@ -444,13 +509,16 @@ def _dask_worker_threads() -> int | None:
     return max(1, cpu_count() // int(nthreads))
 
 
-def _init_worker(threads: int, ready=None) -> None:
-    """Process-pool initializer: only the parent handles Ctrl-C; pin the simulator's threads.
+def _init_worker(threads: int, ready=None, parent_pid: int | None = None) -> None:
+    """Process-pool initializer: exit with the parent; only the parent handles Ctrl-C; pin the
+    simulator's threads.
 
     The BLAS/OpenMP variables are set in the parent's environment before the pool starts (a
     spawned worker imports numpy while unpickling, before any initializer could run); here
     threadpoolctl, when installed, caps any runtime that was loaded anyway.
     """
+    if parent_pid is not None:
+        _exit_with_parent(parent_pid)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
     from .simulate import set_threads
 
@@ -464,6 +532,52 @@ def _init_worker(threads: int, ready=None) -> None:
     if ready is not None:  # tells the parent that workers can start at all
         with ready.get_lock():
             ready.value += 1
+
+
+#: PR_SET_PDEATHSIG from <linux/prctl.h>: the signal a process gets when its parent dies.
+_PR_SET_PDEATHSIG = 1
+
+
+def _exit_with_parent(parent_pid: int) -> None:
+    """Make this worker end when the sweep process that started it ends, however it ends.
+
+    A worker blocked on the pool's queue never notices a killed parent (it holds both ends of the
+    queue's pipe), so it would wait forever. On Linux the kernel sends SIGTERM when the parent
+    dies (``prctl(PR_SET_PDEATHSIG)``); everywhere, a daemon thread watches the parent and calls
+    ``os._exit`` when it is gone (on POSIX the worker is re-parented, so ``os.getppid()``
+    changes; on Windows the parent's process handle is signalled) — checked once a second.
+    """
+    # Linux sends the signal when the *thread* that started the worker ends: the pool's workers are
+    # started by submit() in run_sweep's thread, which lives until the pool is shut down.
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(_PR_SET_PDEATHSIG, int(signal.SIGTERM), 0, 0, 0)
+        except (OSError, AttributeError):
+            pass  # the watcher below still works
+    if os.name == "posix" and os.getppid() != parent_pid:
+        os._exit(1)  # the parent died before prctl took effect: nobody will send the signal
+
+    import multiprocessing
+
+    parent = multiprocessing.parent_process()
+    if os.name != "posix" and parent is None:
+        return  # not started by multiprocessing: nothing to watch
+
+    def watch() -> None:
+        while True:
+            if os.name == "posix":  # a dead parent's children are re-parented: getppid changes
+                time.sleep(1.0)
+                if os.getppid() != parent_pid:
+                    os._exit(1)
+            else:  # Windows keeps the old ppid; the parent's process handle is signalled instead
+                parent.join(1.0)
+                if not parent.is_alive():
+                    os._exit(1)
+
+    threading.Thread(target=watch, name="qgp-parent-watch", daemon=True).start()
 
 
 # -- running -------------------------------------------------------------------------------------
@@ -481,10 +595,11 @@ class _Progress:
         self.t0 = time.monotonic()
         self._last = 0.0
 
-    def say(self, msg: str) -> None:
-        if not self.enabled:
+    def say(self, msg: str, *, always: bool = False) -> None:
+        """A message line; ``always`` prints it even without a progress bar (something to act on)."""
+        if not (self.enabled or always):
             return
-        drawn = self.tty and 0 < self.done + self.failed < self.total
+        drawn = self.enabled and self.tty and 0 < self.done + self.failed < self.total
         print(("\r\033[K" if drawn else "") + f"qgp: {msg}", file=self.stream, flush=True)
         if drawn:
             self._draw()
@@ -539,12 +654,18 @@ def run_sweep(
     cluster: str | None = None,
     retry_failed: bool = False,
     progress: bool = True,
+    connect_timeout: float = 30.0,
 ) -> SweepReport:
     """Run every grid point not yet in the store (and failed ones with ``retry_failed``).
 
     ``workers``: processes (default: the cores); 1 runs inline in this process. ``cluster``: a
-    Dask scheduler address, or "local" for a LocalCluster of ``workers`` processes. Each point is
-    committed when it returns, so an interrupted sweep resumes where it stopped.
+    Dask scheduler address, or "local" for a LocalCluster of ``workers`` processes
+    (``connect_timeout`` seconds to reach a scheduler). Each point is committed when it returns,
+    so an interrupted sweep resumes where it stopped.
+
+    The store is locked for the whole run (``STORE.lock``): a second sweep on it is refused with
+    the holder's pid. Every point uses the data snapshot taken when the sweep was loaded. A
+    scheduler is reached before the store is created, so an unreachable one leaves no store.
     """
     from . import __version__
     from .report import versions
@@ -555,66 +676,89 @@ def run_sweep(
     if cluster is not None:
         _require_dask()
     t0 = time.monotonic()
-    store = bind_store(
-        store_path,
-        grid=[p.entry() for p in sweep.points],
-        sweep_file=str(sweep.source) if sweep.source else "",
-        sweep_text=sweep.text,
-        sweep_sha256=sweep.sha256,
-        data_sha256=sweep.data_sha256,
-        qgp_version=__version__,
-        versions=versions(),
-    )
-    with store:
-        todo = store.to_run(retry_failed=retry_failed)
-        cores = cpu_count()
-        n_workers = max(1, min(workers or cores, len(todo) or 1))
-        threads = max(1, cores // n_workers)
-        mode: ExecutionMode = "dask" if cluster is not None else ("inline" if n_workers == 1 else "processes")
-        bar = _Progress(len(todo), progress)
-        skipped = sweep.size - len(todo)
-        if mode == "dask":
-            where = (
-                f"a local Dask cluster of {n_workers} worker processes" if cluster == "local"
-                else f"the Dask cluster at {cluster}"
-            )
-        elif mode == "inline":
-            where = "this process"
-        else:
-            where = f"{n_workers} worker processes × {threads} thread(s)"
-        bar.say(
-            f"sweep of {sweep.size} points: {skipped} already in {store.path}, {len(todo)} to run on {where}"
-        )
-        by_index = {p.grid_index: p for p in sweep.points}
-        done = failed = 0
-
-        def record(result: Mapping[str, Any]) -> None:
-            nonlocal done, failed
-            store.record(result)
-            if result["status"] == "done":
-                done += 1
-            else:
-                failed += 1
-            bar.update(result["status"])
-
-        tasks = [{"grid_index": i, "config": by_index[i].config} for i in todo]
-        previous = _install_sigterm()
+    data = _data_snapshot(sweep)
+    store_path = check_store_path(store_path)
+    with lock_store(store_path):
+        client = _connect_dask(cluster, connect_timeout) if cluster not in (None, "local") else None
         try:
-            if not tasks:
-                pass
-            elif mode == "inline":
-                for task in tasks:
-                    record(compute_point({**task, "threads": None}))
-            elif mode == "processes":
-                _run_processes(tasks, n_workers, threads, record)
-            else:
-                _run_dask(tasks, cluster, n_workers, sweep, record)
-        except KeyboardInterrupt:
-            bar.say(f"interrupted: {done + failed} point(s) stored this run; run the same command again to resume")
-            raise
+            store = bind_store(
+                store_path,
+                grid=[p.entry() for p in sweep.points],
+                sweep_file=str(sweep.source) if sweep.source else "",
+                sweep_text=sweep.text,
+                sweep_sha256=sweep.sha256,
+                data_sha256=sweep.data_sha256,
+                qgp_version=__version__,
+                versions=versions(),
+            )
+            with store:
+                todo = store.to_run(retry_failed=retry_failed)
+                cores = cpu_count()
+                n_workers = max(1, min(workers or cores, len(todo) or 1))
+                threads = max(1, cores // n_workers)
+                mode: ExecutionMode = "dask" if cluster is not None else ("inline" if n_workers == 1 else "processes")
+                bar = _Progress(len(todo), progress)
+                skipped = sweep.size - len(todo)
+                if mode == "dask":
+                    where = (
+                        f"a local Dask cluster of {n_workers} worker processes" if cluster == "local"
+                        else f"the Dask cluster at {cluster}"
+                    )
+                elif mode == "inline":
+                    where = "this process"
+                else:
+                    where = f"{n_workers} worker processes × {threads} thread(s)"
+                bar.say(
+                    f"sweep of {sweep.size} points: {skipped} already in {store.path}, {len(todo)} to run on {where}"
+                )
+                by_index = {p.grid_index: p for p in sweep.points}
+                done = failed = 0
+
+                def record(result: Mapping[str, Any]) -> None:
+                    nonlocal done, failed
+                    store.record(result)
+                    if result["status"] == "done":
+                        done += 1
+                    else:
+                        failed += 1
+                    bar.update(result["status"])
+
+                # Every task carries the snapshot of its data files, whatever runs it.
+                tasks = []
+                for i in todo:
+                    config = by_index[i].config
+                    task_data = {p: data[p] for p in _data_paths(config) if p in data}
+                    tasks.append({"grid_index": i, "config": config, "data": task_data})
+                previous = _install_sigterm()
+                try:
+                    if not tasks:
+                        pass
+                    elif mode == "inline":
+                        for task in tasks:
+                            record(compute_point({**task, "threads": None}))
+                    elif mode == "processes":
+                        _run_processes(tasks, n_workers, threads, record)
+                    else:
+                        _run_dask(tasks, client, cluster, n_workers, record, bar)
+                except KeyboardInterrupt:
+                    bar.say(
+                        f"interrupted: {done + failed} point(s) stored this run; run the same command again to resume"
+                    )
+                    raise
+                finally:
+                    _restore_sigterm(previous)
+                st = store.status()
         finally:
-            _restore_sigterm(previous)
-        st = store.status()
+            if client is not None:
+                client.close()
+    changed = _changed_data_files(sweep)
+    for path in changed:
+        bar.say(
+            f"data file {path} changed on disk during this sweep (sha256 {sweep.data_sha256[path][:12]}… at the "
+            f"start, {_hash_or_missing(path)} now); every point used the copy read at the start, which the "
+            "store records. Restore the file before resuming this store, or start a new --store for the new data",
+            always=True,
+        )
     return SweepReport(
         store=Path(store_path),
         grid_size=sweep.size,
@@ -629,7 +773,49 @@ def run_sweep(
         mode=mode,
         workers=n_workers,
         threads_per_worker=threads,
+        data_changed=tuple(changed),
     )
+
+
+def _data_snapshot(sweep: Sweep) -> dict[str, bytes]:
+    """The bytes every point uses: those read when the sweep was loaded.
+
+    A ``Sweep`` built without them (by hand) reads the files now, and refuses if they no longer
+    match the hashes it carries.
+    """
+    data = dict(sweep.data)
+    for path, digest in sweep.data_sha256.items():
+        if path in data:
+            continue
+        blob = _read_data_file(path, "sweep")
+        now = hashlib.sha256(blob).hexdigest()
+        if now != digest:
+            raise QgpError(
+                f"data file {path} changed since the sweep was loaded (sha256 {digest} then, {now} now); "
+                "load the sweep again"
+            )
+        data[path] = blob
+    return data
+
+
+def _hash_or_missing(path: str) -> str:
+    try:
+        return _file_sha256(Path(path))[:12] + "…"
+    except OSError:
+        return "missing or unreadable"
+
+
+def _changed_data_files(sweep: Sweep) -> list[str]:
+    """Data files whose bytes on disk are no longer the snapshot's (checked after the run)."""
+    changed = []
+    for path, digest in sorted(sweep.data_sha256.items()):
+        try:
+            now = _file_sha256(Path(path))
+        except OSError:
+            now = None
+        if now != digest:
+            changed.append(path)
+    return changed
 
 
 def _install_sigterm():
@@ -684,7 +870,9 @@ def _run_processes(tasks: list[dict], n_workers: int, threads: int, record: Call
     ready = ctx.Value("i", 0)
     with _ThreadEnv(threads):
         while queue:
-            pool = ProcessPoolExecutor(n_workers, mp_context=ctx, initializer=_init_worker, initargs=(threads, ready))
+            pool = ProcessPoolExecutor(
+                n_workers, mp_context=ctx, initializer=_init_worker, initargs=(threads, ready, os.getpid())
+            )
             inflight: dict[Any, dict] = {}
             broken = False
             try:
@@ -752,24 +940,58 @@ def _require_dask():
         ) from None
 
 
+#: Seconds between checks for connected Dask workers while waiting for results.
+_DASK_WAIT_SECONDS = 5.0
+
+
+def _connect_dask(address: str, timeout: float):
+    """A client of the Dask scheduler at ``address``; a one-line QgpError if it cannot be reached."""
+    from dask.distributed import Client
+
+    try:
+        return Client(address, timeout=f"{max(timeout, 0.1)}s")
+    except (OSError, TimeoutError, ValueError, TypeError) as exc:
+        raise QgpError(
+            f"cannot reach the Dask scheduler at {address!r} ({exc}); check the address "
+            "(e.g. tcp://host:8786) and that the scheduler runs, or use --cluster local"
+        ) from None
+
+
+def _worker_count(client) -> int | None:
+    try:
+        return len(client.scheduler_info().get("workers", {}))
+    except Exception:  # the scheduler is unreachable just now: no count to report
+        return None
+
+
 def _run_dask(
-    tasks: list[dict], cluster: str, n_local: int, sweep: Sweep, record: Callable[[Mapping[str, Any]], None]
+    tasks: list[dict],
+    client,
+    cluster: str,
+    n_local: int,
+    record: Callable[[Mapping[str, Any]], None],
+    bar: _Progress,
 ) -> None:
     """Send points to a Dask cluster; results come back here, the store's only writer.
 
-    The data files travel with each task, so workers need not share this file system.
+    ``client`` is connected already (a remote scheduler), or None for ``cluster == "local"``,
+    which starts a LocalCluster of ``n_local`` processes here. The data snapshot travels with each
+    task, so workers need not share this file system. While no worker is connected, a line says so
+    every ``_DASK_WAIT_SECONDS`` instead of waiting in silence.
     """
+    import asyncio
     import logging
 
-    from dask.distributed import Client, LocalCluster, as_completed
+    from dask.distributed import LocalCluster, wait
 
     from .simulate import cpu_count
 
-    blobs = {p: Path(p).read_bytes() for p in sweep.data_sha256}
     local = None
-    client = None
+    own_client = None
     try:
-        if cluster == "local":
+        if client is None:
+            from dask.distributed import Client
+
             local = LocalCluster(
                 n_workers=n_local,
                 threads_per_worker=1,
@@ -777,38 +999,51 @@ def _run_dask(
                 dashboard_address=None,
                 silence_logs=logging.ERROR,
             )
-            client = Client(local)
+            client = own_client = Client(local)
             threads: int | None = max(1, cpu_count() // n_local)
         else:
-            try:
-                client = Client(cluster, timeout="30s")
-            except (OSError, TimeoutError, ValueError) as exc:
-                raise QgpError(
-                    f"cannot reach the Dask scheduler at {cluster!r} ({exc}); check the address "
-                    "(e.g. tcp://host:8786) and that the scheduler runs, or use --cluster local"
-                ) from None
             threads = None  # each worker works out its own share of its machine
+        address = cluster if local is None else "the local cluster"
         futures = {}
         for task in tasks:
-            data = {p: blobs[p] for p in _data_paths(task["config"]) if p in blobs}
-            fut = client.submit(compute_point, {**task, "threads": threads, "data": data}, pure=False)
-            futures[fut.key] = (fut, task)
+            fut = client.submit(compute_point, {**task, "threads": threads}, pure=False)
+            futures[fut] = task
+        pending = set(futures)
         try:
-            for fut in as_completed([f for f, _ in futures.values()]):
-                task = futures[fut.key][1]
+            while pending:
                 try:
-                    result = fut.result()
-                except Exception as exc:  # the cluster lost the task (e.g. its worker died each time)
-                    result = _lost(
-                        task, f"the Dask cluster could not run this point: {_error_text(exc)}; rerun with --retry-failed"
-                    )
-                record(result)
+                    finished, pending = wait(list(pending), timeout=_DASK_WAIT_SECONDS, return_when="FIRST_COMPLETED")
+                except (TimeoutError, asyncio.TimeoutError):
+                    if _worker_count(client) == 0:
+                        hint = f"start some with `dask worker {cluster}`" if local is None else "the local workers did not start"
+                        bar.say(
+                            f"waiting for Dask workers at {address} (0 connected); {len(pending)} point(s) queued: "
+                            f"{hint}, or stop with Ctrl-C (finished points are kept)",
+                            always=True,
+                        )
+                    continue
+                except Exception:  # futures the cluster cancelled: report them below as lost points
+                    finished = {f for f in pending if f.cancelled()}
+                    if not finished:
+                        raise
+                    pending = pending - finished
+                pending = set(pending)
+                for fut in finished:
+                    task = futures[fut]
+                    try:
+                        result = fut.result()
+                    except Exception as exc:  # the cluster lost the task (e.g. its worker died each time)
+                        result = _lost(
+                            task,
+                            f"the Dask cluster could not run this point: {_error_text(exc)}; rerun with --retry-failed",
+                        )
+                    record(result)
         except BaseException:
-            client.cancel([f for f, _ in futures.values()])
+            client.cancel(list(futures))
             raise
     finally:
-        if client is not None:
-            client.close()
+        if own_client is not None:
+            own_client.close()
         if local is not None:
             local.close()
 
@@ -870,10 +1105,24 @@ def _cell(value: Any) -> str:
     return str(value)
 
 
-def export_csv(store_path: str | Path, out: str | Path, *, test_points: bool = False) -> int:
+def export_csv(store_path: str | Path, out: str | Path, *, test_points: bool = False, force: bool = False) -> int:
     """Write a tidy CSV: one row per done point (axes columns, then summary scalars), or with
-    ``test_points`` one row per test point of each done point. Returns the number of rows."""
+    ``test_points`` one row per test point of each done point. Returns the number of rows.
+
+    An existing ``out`` is replaced only with ``force``; the store itself (and its ``-wal``,
+    ``-shm`` and lock files) never, and the CSV is written to a temporary name and renamed into
+    place, so a killed export leaves the old file or the new one.
+    """
+    store_path = Path(store_path)
     out = Path(out)
+    # SQLite's and qgp's companion files of the store: refused whether or not they exist now (a
+    # CSV named STORE-wal would be taken for the store's journal when it is next opened).
+    companions = [store_path.with_name(store_path.name + s) for s in ("-wal", "-shm", "-journal")]
+    companions.append(lock_path(store_path))
+    for companion in companions:
+        if out.absolute() == companion.absolute() or same_file(out, companion):
+            raise QgpError(f"--csv {out} is a file of the store {store_path}; name a different output file")
+    out = check_output_file(out, force=force, option="--csv", inputs=[store_path])
     with open_store(store_path) as store:
         axis_keys: list[str] = []
         for entry in store.grid():
@@ -913,9 +1162,7 @@ def export_csv(store_path: str | Path, out: str | Path, *, test_points: bool = F
                         scalar_names.append(name)
                 rows.append({"grid_index": p.grid_index, **p.axes, **flat, "started": p.started, "finished": p.finished})
             header += scalar_names + ["started", "finished"]
-    if out.parent and not out.parent.is_dir():
-        raise QgpError(f"folder {out.parent} of {out} does not exist; create it first")
-    with open(out, "w", newline="", encoding="utf-8") as fh:
+    with atomic_open(out, "w", newline="") as fh:
         w = csv.writer(fh)
         w.writerow(header)
         for row in rows:

@@ -8,17 +8,20 @@ a file that is not ours is refused without a single byte written.
 
 from __future__ import annotations
 
+import contextlib
 import csv
 import hashlib
 import itertools
 import json
 import math
 import os
+import re
 import shutil
 import signal
 import sqlite3
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -342,7 +345,7 @@ def test_a_store_is_bound_to_its_sweep_and_data(tmp_path):
     with (tmp_path / "data" / "ice_train.csv").open("a") as fh:
         fh.write("400.0,30.0\n")
     changed = load_sweep(_project(tmp_path, FOUR, "changed.toml"))
-    with pytest.raises(QgpError, match=r"data file\(s\) .*ice_train.csv changed since the store was made"):
+    with pytest.raises(QgpError, match=r"data file\(s\) changed since the store was made \(.*ice_train.csv: sha256"):
         run_sweep(changed, target, workers=1, progress=False)
     with open_store(target) as store:
         assert store.points(None) == []
@@ -562,3 +565,301 @@ def test_kill_and_resume_keeps_one_row_per_point_and_finished_rows_unchanged(tmp
             assert s.test_points(i) == killed_tp[i]
         n_test = final[0]["n_test"]
         assert all(len(s.test_points(i)) == n_test for i in final)
+
+
+# -- no user file is ever lost or half-written (issue 10) -----------------------------------------
+
+# Twenty points of about 1 s each (10 clock qubits; each lengthscale is another matrix, so nothing is
+# reused between points): a sweep still running while a second process starts (about 2 s), or while
+# its parent is killed; the tests stop it early.
+SLOW = (
+    BASE.replace("clock_qubits = 3", "clock_qubits = 10")
+    + '[axes]\n"kernel.lengthscale" = ['
+    + ", ".join(f"{40.0 + i}" for i in range(20))
+    + "]\n"
+)
+
+
+def test_results_csv_never_replaces_the_store_or_a_file_without_force(four_points, tmp_path, capsys, monkeypatch):
+    # Reproduced: `qgp results r.sqlite --csv r.sqlite` replaced the store with a CSV (exit 0), and
+    # --csv onto any existing file overwrote it silently.
+    _, one, _, _, _ = four_points
+    store_sha = _sha(one)
+    for extra in ([], ["--force"]):  # the input store is refused even with --force
+        assert main(["results", str(one), "--csv", str(one), *extra]) == 2
+        err = capsys.readouterr().err.strip()
+        assert "is the input file" in err and "\n" not in err
+    # Nor a file of the store that may not exist now: SQLite would read a CSV named STORE-wal as
+    # the store's write-ahead log (SQLite's file naming: sqlite.org/tempfiles.html).
+    for suffix in ("-wal", "-shm", ".lock"):
+        companion = Path(str(one) + suffix)
+        before = companion.exists() and _sha(companion)  # SQLite may keep -wal/-shm after a read
+        assert main(["results", str(one), "--csv", str(companion), "--force"]) == 2
+        assert "is a file of the store" in capsys.readouterr().err
+        assert (companion.exists() and _sha(companion)) == before
+    assert _sha(one) == store_sha
+
+    mine = tmp_path / "mine.csv"
+    mine.write_text("a user's own table\n")
+    assert main(["results", str(one), "--csv", str(mine)]) == 2
+    err = capsys.readouterr().err.strip()
+    assert f"--csv {mine} already exists" in err and "--force" in err and "\n" not in err
+    assert mine.read_text() == "a user's own table\n"
+    assert main(["results", str(one), "--csv", str(tmp_path)]) == 2  # was an IsADirectoryError traceback
+    err = capsys.readouterr().err.strip()
+    assert err.startswith("qgp: error: --csv") and "is a folder" in err and "\n" not in err
+
+    # Written atomically: an export that fails half-way leaves the old file whole and no temporary
+    # file (temporary name in the same folder, then rename(2), which is atomic: POSIX).
+    import qgp.sweeps
+
+    real_cell, calls = qgp.sweeps._cell, []
+
+    def failing_cell(value):
+        calls.append(value)
+        if len(calls) == 30:
+            raise RuntimeError("disk full (injected)")
+        return real_cell(value)
+
+    monkeypatch.setattr(qgp.sweeps, "_cell", failing_cell)
+    with pytest.raises(RuntimeError, match="injected"):
+        qgp.sweeps.export_csv(one, mine, force=True)
+    monkeypatch.setattr(qgp.sweeps, "_cell", real_cell)
+    assert len(calls) == 30 and mine.read_text() == "a user's own table\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["mine.csv"]
+    assert main(["results", str(one), "--csv", str(mine), "--force"]) == 0
+    with mine.open() as fh:
+        assert len(list(csv.DictReader(fh))) == 4
+
+
+def test_a_second_sweep_on_a_store_in_use_refuses_and_runs_nothing(tmp_path):
+    # Reproduced: two `qgp sweep` processes on one store both ran every point ("24 done" twice).
+    from qgp.store import lock_path, lock_store
+
+    path = _project(tmp_path, SLOW)
+    store = tmp_path / "r.sqlite"
+    first = _sweep_cli(path, store, "--workers", "1")
+    try:
+        _wait_for_done(first, store, 1)
+        second = _sweep_cli(path, store, "--workers", "1")
+        out, err = second.communicate(timeout=120)
+        still_running = first.poll() is None
+        with open_store(store) as s:
+            done_when_refused = s.status().done
+    finally:
+        os.killpg(first.pid, signal.SIGKILL)
+        first.wait(timeout=30)
+    assert still_running, "the first sweep ended before the second tried the store; nothing was tested"
+    assert second.returncode == 2 and out == b""
+    line = err.decode().strip()
+    assert "\n" not in line and line.startswith(f"qgp: error: {store} is being written by another qgp sweep")
+    assert f"pid {first.pid} on " in line and "wait for it to finish or use another --store" in line
+    assert 0 < done_when_refused < 20
+
+    # The killed holder's lock file stays, naming it, but binds nobody: flock(2) locks belong to
+    # the open file and are released when the holder dies (POSIX, common practice for pid files).
+    assert json.loads(lock_path(store).read_text())["pid"] == first.pid
+    with lock_store(store) as lock:
+        assert lock.held and json.loads(lock_path(store).read_text())["pid"] == os.getpid()
+    assert not lock_path(store).exists()  # a released lock leaves no file behind
+    con = sqlite3.connect(store)
+    assert con.execute("SELECT COUNT(*) = COUNT(DISTINCT grid_index) FROM points").fetchone() == (1,)
+    con.close()
+
+
+def test_a_store_held_by_this_process_is_refused_by_a_second_run(tmp_path):
+    # The same rule inside one process (two threads or calls): flock locks are per open file.
+    from qgp.store import lock_store
+
+    sweep = load_sweep(_project(tmp_path, FOUR))
+    store = tmp_path / "r.sqlite"
+    with lock_store(store):
+        with pytest.raises(QgpError, match=rf"is being written by another qgp sweep \(pid {os.getpid()} on "):
+            run_sweep(sweep, store, workers=1, progress=False)
+    assert not store.exists()
+
+
+def _targets(store: Path) -> dict[int, list[float]]:
+    with open_store(store) as s:
+        return {p.grid_index: [tp["target"] for tp in s.test_points(p.grid_index)] for p in s.points()}
+
+
+def test_every_point_uses_the_data_read_at_the_start_and_a_changed_file_stops_a_resume(tmp_path, monkeypatch, capsys):
+    # Reproduced: a data file edited while a sweep ran was mixed in silently (points 0-6 saw one
+    # file, 7-11 another). Here the test file's targets change while point 0 runs.
+    import qgp.inference
+
+    path = _project(tmp_path, BASE + '[axes]\n"readout.seed" = [1, 2, 3, 4]\n')
+    test_csv = (tmp_path / "data" / "ice_test.csv").resolve()
+    original = test_csv.read_bytes()
+    rows = list(csv.reader(original.decode().splitlines()))
+    truth = [float(r[1]) for r in rows[1:]]
+    edited = "\n".join([",".join(rows[0])] + [f"{r[0]},{float(r[1]) + 100.0}" for r in rows[1:]]) + "\n"
+    sha_original, sha_edited = _sha(test_csv), hashlib.sha256(edited.encode()).hexdigest()
+    store = tmp_path / "r.sqlite"
+    real_infer, calls = qgp.inference.infer, []
+
+    def hooked(problem, circuit, readout, **kw):
+        calls.append(1)
+        if len(calls) in (1, 4):  # while points 0 (first run) and 2 (the resume) run
+            test_csv.write_text(edited)
+        if len(calls) == 3:  # stop the first run before point 2: a partial store
+            raise KeyboardInterrupt
+        return real_infer(problem, circuit, readout, **kw)
+
+    monkeypatch.setattr(qgp.inference, "infer", hooked)
+    with pytest.raises(KeyboardInterrupt):
+        run_sweep(load_sweep(path), store, workers=1, progress=False)
+    assert _targets(store) == {0: truth, 1: truth}  # point 1 read its data after the edit
+
+    # Resuming over the changed file is refused: the file, both hashes and the two ways out.
+    with pytest.raises(QgpError) as err:
+        run_sweep(load_sweep(path), store, workers=1, progress=False)
+    msg = str(err.value)
+    assert f"{test_csv}: sha256 {sha_original} when the store was made, {sha_edited} now" in msg
+    assert "restore the file as it was" in msg and "new --store" in msg
+    assert main(["sweep", str(path), "--store", str(store), "--workers", "1", "--quiet"]) == 2
+    line = capsys.readouterr().err.strip()
+    assert "\n" not in line and sha_edited in line
+
+    # Restored, it resumes; an edit during the resume is again not mixed in, and is reported.
+    test_csv.write_bytes(original)
+    report = run_sweep(load_sweep(path), store, workers=1, progress=False)
+    assert (report.ran, report.store_done) == (2, 4)
+    assert _targets(store) == {i: truth for i in range(4)}
+    assert report.data_changed == (str(test_csv),)
+    warning = capsys.readouterr().err  # said even without a progress bar
+    assert f"data file {test_csv} changed on disk during this sweep" in warning
+    assert f"sha256 {sha_original[:12]}… at the start, {sha_edited[:12]}… now" in warning
+
+
+def _proc_stat(pid: int) -> list[str] | None:
+    """Fields of /proc/PID/stat after the command name (state first), or None if it is gone."""
+    try:
+        text = Path(f"/proc/{pid}/stat").read_text()
+    except OSError:
+        return None
+    return text.rsplit(")", 1)[1].split()
+
+
+def _children(pid: int) -> dict[int, str]:
+    """Child pid → its start time (to tell a reused pid apart), from /proc."""
+    kids = {}
+    for entry in Path("/proc").iterdir():
+        if entry.name.isdigit():
+            stat = _proc_stat(int(entry.name))
+            if stat is not None and int(stat[1]) == pid:
+                kids[int(entry.name)] = stat[19]
+    return kids
+
+
+def _running(pid: int, started: str) -> bool:
+    # A zombie ("Z") has exited; only reaping by its new parent (init here) is left.
+    stat = _proc_stat(pid)
+    return stat is not None and stat[19] == started and stat[0] != "Z"
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="reads worker pids from /proc (Linux only)")
+def test_workers_exit_when_the_sweep_process_is_killed(tmp_path):
+    # Reproduced: SIGKILL of the `qgp sweep` parent left its worker processes running idle.
+    path = _project(tmp_path, SLOW)
+    store = tmp_path / "r.sqlite"
+    proc = _sweep_cli(path, store, "--workers", "2")
+    try:
+        _wait_for_done(proc, store, 1)
+        kids = _children(proc.pid)
+        workers = [p for p in kids if b"spawn_main" in Path(f"/proc/{p}/cmdline").read_bytes()]
+        assert len(workers) == 2, kids
+        os.kill(proc.pid, signal.SIGKILL)  # the parent alone, not its process group
+        proc.wait(timeout=30)
+        deadline = time.monotonic() + 10.0  # bounded wait: the watcher polls once a second
+        while time.monotonic() < deadline and any(_running(p, kids[p]) for p in kids):
+            time.sleep(0.1)
+        left = [p for p in kids if _running(p, kids[p])]
+    finally:
+        with contextlib.suppress(ProcessLookupError):
+            os.killpg(proc.pid, signal.SIGKILL)
+    # Every child is gone: both workers (prctl(PR_SET_PDEATHSIG) sends them SIGTERM when the
+    # parent dies: Linux prctl(2)) and multiprocessing's resource tracker (its pipe closes).
+    assert left == [], f"still running after the parent was killed: {left}"
+
+
+def test_an_unreachable_scheduler_leaves_no_store(tmp_path):
+    pytest.importorskip("dask.distributed", reason="dask[distributed] is not installed (pip install 'qgp[cluster]')")
+    import socket
+
+    sweep = load_sweep(_project(tmp_path, FOUR))
+    with socket.socket() as s:  # a loopback port nothing listens on
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    before = sorted(p.name for p in tmp_path.iterdir())
+    address = f"tcp://127.0.0.1:{port}"
+    with pytest.raises(QgpError, match=rf"cannot reach the Dask scheduler at '{address}' .*or use --cluster local"):
+        run_sweep(sweep, tmp_path / "r.sqlite", cluster=address, connect_timeout=1.0, progress=False)
+    assert sorted(p.name for p in tmp_path.iterdir()) == before  # no store, no lock file
+
+
+def test_zero_dask_workers_are_reported_while_waiting(tmp_path, monkeypatch, capsys):
+    distributed = pytest.importorskip("dask.distributed", reason="dask[distributed] is not installed")
+    import logging
+
+    import qgp.sweeps
+
+    sweep = load_sweep(_project(tmp_path, BASE + '[axes]\n"readout.seed" = [1, 2]\n'))
+    monkeypatch.setattr(qgp.sweeps, "_DASK_WAIT_SECONDS", 0.5)
+    seen: list[str] = []
+    real_say = qgp.sweeps._Progress.say
+    with distributed.LocalCluster(n_workers=0, dashboard_address=None, silence_logs=logging.ERROR) as cluster:
+
+        def say(self, msg, *, always=False):
+            real_say(self, msg, always=always)
+            if "waiting for Dask workers" in msg and not seen:
+                seen.append(msg)
+                cluster.scale(1)  # a worker arrives once the wait has been reported
+
+        monkeypatch.setattr(qgp.sweeps._Progress, "say", say)
+        # Without the message the run would wait forever: a worker arrives after 20 s regardless,
+        # so a silent wait fails the assertions below instead of hanging the test.
+        fallback = threading.Timer(20.0, lambda: seen or cluster.scale(1))
+        fallback.start()
+        try:
+            report = run_sweep(sweep, tmp_path / "r.sqlite", cluster=cluster.scheduler_address, progress=False)
+        finally:
+            fallback.cancel()
+    assert seen and seen[0].startswith(f"waiting for Dask workers at {cluster.scheduler_address} (0 connected)")
+    assert "waiting for Dask workers" in capsys.readouterr().err  # said even without a progress bar
+    assert report.mode == "dask" and report.store_done == 2
+
+
+@pytest.mark.parametrize(
+    "case, message",
+    [
+        ("sweep-is-folder", r"sweep file .* is a folder; name the sweep's TOML file"),
+        ("base-is-folder", r"base config .* is a folder; name the config's TOML file"),
+        ("store-is-folder", r"--store .* is a folder, not a qgp result store; give a file name"),
+        ("store-folder-missing", r"folder .*nowhere of --store .* does not exist; create it first"),
+        ("store-is-a-csv", r"is not an SQLite file, so not a qgp result store; it was left untouched"),
+        ("store-is-the-sweep-file", r"is not an SQLite file"),
+    ],
+)
+def test_bad_sweep_inputs_are_one_line_errors_before_any_work(tmp_path, capsys, case, message):
+    sweep_path = _project(tmp_path, FOUR)
+    store = tmp_path / "r.sqlite"
+    if case == "sweep-is-folder":
+        sweep_path = tmp_path / "data"
+    elif case == "base-is-folder":
+        sweep_path = _project(tmp_path, 'base = "data"\n[axes]\n"readout.seed" = [1]\n', "folder-base.toml")
+    elif case == "store-is-folder":
+        store.mkdir()
+    elif case == "store-folder-missing":
+        store = tmp_path / "nowhere" / "r.sqlite"
+    elif case == "store-is-a-csv":
+        store.write_text("a,b\n1,2\n")
+    elif case == "store-is-the-sweep-file":
+        store = sweep_path
+    before = {p.name: (p.is_dir() or _sha(p)) for p in tmp_path.iterdir()}
+    assert main(["sweep", str(sweep_path), "--store", str(store), "--quiet", "--workers", "1"]) == 2
+    line = capsys.readouterr().err.strip()
+    assert "\n" not in line and line.startswith("qgp: error: ")
+    assert re.search(message, line), line
+    assert {p.name: (p.is_dir() or _sha(p)) for p in tmp_path.iterdir()} == before  # nothing made or changed
