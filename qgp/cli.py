@@ -69,10 +69,25 @@ def build_parser() -> argparse.ArgumentParser:
         "export",
         help="write the inversion circuits as OpenQASM 3 with their resource counts",
         description="Write inversion.qasm (state preparation of y then the 1/λ inversion), inversion_sqrt.qasm "
-        "(the 1/√λ circuit) and resources.json into --out, decomposed to the ['u', 'cx'] basis.",
+        "(the 1/√λ circuit) and resources.json into --out, decomposed to the ['u', 'cx'] basis. With "
+        "--test-point J also hadamard_test_J.qasm, the Hadamard test whose counts give the mean at test point J.",
     )
     _config_arg(p)
-    p.add_argument("--out", type=Path, required=True, help="output folder (created if missing)")
+    p.add_argument(
+        "--out", type=Path, required=True, help="output folder (created if missing; an earlier export is kept unless --force)"
+    )
+    p.add_argument("--force", action="store_true", help="overwrite files of an earlier export in --out")
+    p.add_argument(
+        "--measure",
+        action="store_true",
+        help="measure every register r at the end into a classical register c_r (for samplers)",
+    )
+    p.add_argument(
+        "--test-point",
+        type=int,
+        metavar="J",
+        help="also export the Hadamard test of test point J (0-based) and the constants of its mean",
+    )
     p.set_defaults(handler=_cmd_export)
 
     p = sub.add_parser(
@@ -112,8 +127,9 @@ def build_parser() -> argparse.ArgumentParser:
         "--test-points one row per test point of each done grid point.",
     )
     p.add_argument("store", type=Path, help="result store written by qgp sweep")
-    p.add_argument("--csv", type=Path, required=True, help="output CSV file")
+    p.add_argument("--csv", type=Path, required=True, help="output CSV file (never the store; an existing file only with --force)")
     p.add_argument("--test-points", action="store_true", help="one row per test point instead of per grid point")
+    p.add_argument("--force", action="store_true", help="overwrite an existing --csv file")
     p.set_defaults(handler=_cmd_results)
     p = sub.add_parser(
         "figures",
@@ -212,7 +228,9 @@ def _cmd_export(args) -> int:
     from .config import load_config
     from .export import export_config
 
-    paths = export_config(load_config(_resolve_config(args)), args.out)
+    paths = export_config(
+        load_config(_resolve_config(args)), args.out, measure=args.measure, test_point=args.test_point, force=args.force
+    )
     for path in paths:
         print(f"wrote {path}")
     return 0
@@ -278,7 +296,7 @@ def _cmd_sweep(args) -> int:
 def _cmd_results(args) -> int:
     from .sweeps import export_csv
 
-    n = export_csv(args.store, args.csv, test_points=args.test_points)
+    n = export_csv(args.store, args.csv, test_points=args.test_points, force=args.force)
     print(f"wrote {n} row(s) to {args.csv}")
     return 0
 

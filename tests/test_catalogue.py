@@ -3,14 +3,16 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 
 import numpy as np
 import pytest
-from qiskit import qasm3
+from qiskit import qasm3, transpile
+from qiskit_aer import AerSimulator
 
 from qgp.encoding import normalised_amplitudes
-from qgp.export import CATALOGUE, REGENERATE_COMMAND, catalogue_entry, fused_circuit, main
+from qgp.export import CATALOGUE, REGENERATE_COMMAND, catalogue_entry, fused_circuit, gate_counts_by_origin, main
 from qgp.inversion import build_inversion, statevector_array
 from qgp.resources import gate_inversion, resources_of
 from qgp.simulate import run_statevector
@@ -79,29 +81,73 @@ def test_stored_file_acts_like_the_rebuilt_circuit(name):
     assert abs(float(np.sum(np.abs(post) ** 2)) - doc["expected"]["success_probability"]) < TOL
 
 
-def _integers(doc: dict) -> dict:
-    """Every integer count in a resources document (qubits, calls, gate counts, depth)."""
-    out = {f"qubits.{k}": v for k, v in doc["qubits"].items()}
-    for key in ("n_oracle_calls", "n_phase_estimations", "n_block_qubits", "n_pauli_terms", "clock_qubits", "optimization_level"):
-        out[key] = doc[key]
-    for basis, g in (doc["gate_counts"] or {}).items():
-        out.update({f"{basis}.{gate}": n for gate, n in g["counts"].items()})
-        out[f"{basis}.depth"] = g["depth"]
+# Counts fixed by qgp's construction: qubits per register, oracle and phase-estimation counts, the
+# block register, the Pauli terms of A, the clock and the optimisation level.
+_QUERY_LEVEL = ("n_oracle_calls", "n_phase_estimations", "n_block_qubits", "n_pauli_terms", "clock_qubits", "optimization_level")
+
+# Synthesis-dependent counts (one-qubit gates of the dense unitaries, and the depth) are compared
+# with the stored JSON within SYNTH_RTOL. Measured (issue 10): the demo's synthesised walk body
+# gave u = 901131 (the catalogue's earlier machine), 902151 (OPENBLAS_CORETYPE unset here,
+# SkylakeX), 910311 (Sandybridge), 921531 (Haswell and Zen; the issue's machine), 922041
+# (Prescott), 922551 (Nehalem): 2.4% spread; depth 991127 … 1010507 (2.0%), rz 1990045 …
+# 2011465 (1.1%), while every CX count (512956 in both bases), every count of the pieces qgp
+# composes itself and all counts of cao2012_exact and hhl_2x2_exact were identical. 5% is twice
+# the largest measured spread.
+SYNTH_RTOL = 0.05
+
+
+def _query_integers(res: dict) -> dict:
+    out = {f"qubits.{k}": v for k, v in res["qubits"].items()}
+    out.update({key: res[key] for key in _QUERY_LEVEL})
     return out
 
 
 @pytest.mark.parametrize("name", CATALOGUE)
 def test_resource_counts_did_not_change_unnoticed(name):
-    # Issue 3 (b): recount the rebuilt entry; integer counts must equal the stored JSON exactly
-    # (a qiskit upgrade that synthesises differently shows up here; regenerate the catalogue
-    # with the documented command after checking why).
+    # Issue 3 (b), restated by issue 10: recount the rebuilt entry. What qgp fixes must equal the
+    # stored JSON exactly: the query-level counts, the CX counts (the quantum Shannon decomposition
+    # fixes them by the block structure — Shende, Bullock & Markov 2006; Krol & Al-Ars 2024, as
+    # qiskit's qs_decomposition documents — and a two-qubit block changes its CX number only when
+    # its Weyl coordinates move by ~1e-8, far above rounding), and every count of the pieces qgp
+    # composes itself. One-qubit gates of dense-unitary syntheses and the depth depend on the
+    # platform's floating point (which near-identity rotations are dropped): within SYNTH_RTOL.
+    # A change beyond either shows a qiskit upgrade or a change in qgp: find out why, then
+    # regenerate with the documented command.
     entry = catalogue_entry(name)
     gi = gate_inversion(entry.A, entry.settings, "inverse", entry.bounds, prepare=normalised_amplitudes(entry.b))
     now = resources_of(gi).as_dict()
+    origin = gate_counts_by_origin(gi.decomposed)
     _, doc = _stored(name)
-    assert _integers(now) == _integers(doc["resources"]), f"{name}: counts changed (qiskit {doc['versions']['qiskit']} stored)"
+    stored, stored_origin = doc["resources"], doc["gate_counts_by_origin"]
+    where = f"{name} (stored with qiskit {doc['versions']['qiskit']} on {doc['platform']['machine']})"
+    assert _query_integers(now) == _query_integers(stored), where
+    assert origin["dense_pieces"] == stored_origin["dense_pieces"], where
+    worst, worst_what = 0.0, ""
+    for basis in now["gate_counts"]:
+        assert now["gate_counts"][basis]["cx"] == stored["gate_counts"][basis]["cx"], f"{where}: {basis} CX"
+        assert origin[basis]["composed"] == stored_origin[basis]["composed"], f"{where}: {basis} composed pieces"
+        dense, dense_stored = origin[basis]["dense"], stored_origin[basis]["dense"]
+        assert dense.get("cx", 0) == dense_stored.get("cx", 0), f"{where}: {basis} CX of the dense pieces"
+        assert set(dense) == set(dense_stored), f"{where}: {basis} gate kinds {sorted(dense)} vs {sorted(dense_stored)}"
+        pairs = [(f"{basis} {g}", dense[g], dense_stored[g]) for g in dense if g != "cx"]
+        pairs.append((f"{basis} depth", now["gate_counts"][basis]["depth"], stored["gate_counts"][basis]["depth"]))
+        for what, a, b in pairs:
+            rel = abs(a - b) / max(b, 1)
+            if rel >= worst:
+                worst, worst_what = rel, f"{what}: {a} now vs {b} stored"
+    assert worst <= SYNTH_RTOL, f"{where}: synthesis-dependent count off by {worst:.2%} ({worst_what})"
     assert gi.inversion.scale == pytest.approx(doc["scale_inverse"], rel=1e-12)
     assert np.allclose(gi.inversion.clock_eigenvalues, doc["constants"]["clock_eigenvalues"], rtol=1e-12, atol=0)
+
+
+def test_catalogue_records_the_platform():
+    # Issue 10: synthesis-dependent counts are only meaningful beside where they were made.
+    for name in CATALOGUE:
+        _, doc = _stored(name)
+        assert set(doc["versions"]) >= {"qiskit", "qiskit_aer", "numpy", "scipy"}, name
+        plat = doc["platform"]
+        assert plat["machine"] and "OPENBLAS_CORETYPE" in plat, (name, plat)
+        assert plat["numpy_blas"] is None or "name" in plat["numpy_blas"], (name, plat)
 
 
 def test_cao_worked_example_from_the_file():
@@ -131,25 +177,93 @@ def test_two_by_two_example_from_the_file():
     assert abs(p - 0.625 * inv.scale**2) < 1e-10
 
 
+def _structure(text: str) -> list:
+    """What of a file does not depend on the platform's floating point: every declaration, call
+    and measurement as written, top-level one-qubit gates by their qubits, and each definition by
+    name, arity and CX count. Left out: angles, gphase lines (a phase that rounds to exactly 0 is
+    not written) and the U lines inside definitions (dense syntheses differ in them; see
+    SYNTH_RTOL)."""
+    out: list = []
+    body = None
+    for line in text.splitlines():
+        s = line.strip()
+        if not s or s.startswith("//") or s.startswith("gphase("):
+            continue
+        head = re.match(r"gate (\w+) (.*) \{$", s)
+        if head:
+            body = [head[1], len(head[2].split(",")), 0]
+        elif s == "}":
+            out.append(("gate", *body))
+            body = None
+        elif body is not None:
+            body[2] += s.startswith("cx ")
+        elif s.startswith("U("):
+            out.append(("U", s.rsplit(")", 1)[1].strip()))
+        else:
+            out.append(s)
+    return out
+
+
 def test_regeneration_command_writes_the_catalogue(tmp_path):
-    # The documented command, run into a scratch folder: the same files, and qasm files of the
-    # same shape (line count) as the stored ones.
+    # The documented command, run into a scratch folder: the same files, with the structure of the
+    # stored ones (issue 10: not their line count, which a gphase that rounds to 0 changes).
     assert main(["--catalogue", str(tmp_path)]) == 0
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted(
+        f"{name}.{ext}" for name in CATALOGUE for ext in ("qasm", "json")
+    ), "stray or temporary files"
     for name in CATALOGUE:
-        new = (tmp_path / f"{name}.qasm").read_text().splitlines()
-        old = (CIRCUITS / f"{name}.qasm").read_text().splitlines()
-        assert len(new) == len(old), name
-        assert [ln.split()[0] for ln in new if not ln.startswith("  ")] == [
-            ln.split()[0] for ln in old if not ln.startswith("  ")
-        ], name
+        new, old = _structure((tmp_path / f"{name}.qasm").read_text()), _structure((CIRCUITS / f"{name}.qasm").read_text())
+        diff = next((i for i, (a, b) in enumerate(zip(new, old)) if a != b), None)
+        assert len(new) == len(old) and diff is None, (
+            f"{name}: structure differs at statement {diff}: {new[diff] if diff is not None else len(new)} "
+            f"vs {old[diff] if diff is not None else len(old)}"
+        )
+        assert len(new) > 10
+        doc_new = json.loads((tmp_path / f"{name}.json").read_text())
+        _, doc_old = _stored(name)
+        assert sorted(doc_new) == sorted(doc_old), name
+    # It regenerates in place: running it again over its own output is not refused.
+    assert main(["--catalogue", str(tmp_path)]) == 0
+
+
+def _aer_user_path(text: str) -> np.ndarray:
+    """load → transpile(…, AerSimulator()) at the default optimisation level → Aer statevector."""
+    loaded = qasm3.loads(text)
+    compiled = transpile(loaded, AerSimulator())
+    assert compiled.num_qubits == loaded.num_qubits
+    compiled.save_statevector()
+    result = AerSimulator(method="statevector").run(compiled).result()
+    assert result.success, result.status
+    return np.asarray(result.get_statevector())
+
+
+def _check_users_way(name: str) -> None:
+    _, inv, sv_mem = _rebuilt(name)
+    qasm, _ = _stored(name)
+    sv = _aer_user_path(qasm.read_text())
+    post = statevector_array(sv, inv)[0, 1, 0, :]
+    ref = statevector_array(sv_mem, inv)[0, 1, 0, :]
+    worst = float(np.max(np.abs(post - ref)))
+    assert worst < AER_TOL, f"{name}: worst post-selected residual through Aer {worst:.3g}"
+    assert float(np.linalg.norm(ref)) > 0.01
+
+
+# The user's path re-synthesises two-qubit blocks at the default optimisation level (~1e-15 each):
+# 1e-8, as for fresh exports (tests/test_export.py).
+AER_TOL = 1e-8
+
+
+@pytest.mark.parametrize("name", [n for n in CATALOGUE if n != "demo_walk_dilation"])
+def test_catalogue_file_runs_the_users_way_in_aer(name):
+    # Issue 10: the stored file, loaded with qasm3.loads, transpiled for AerSimulator() at the
+    # default optimisation level and run on Aer (nothing of qgp in the path; the old files'
+    # `gate unitary` crashed Aer's assembler), gives qgp's own post-selected state
+    # (flag=1, clock=0, block=0) of the rebuilt circuit.
+    _check_users_way(name)
 
 
 @pytest.mark.slow
-def test_demo_file_runs_unfused_in_aer():
-    # A second reading of the demo file: Aer unrolls all 510 walk calls itself (1.4M U/cx gates,
-    # several minutes) instead of multiplying each definition out once.
-    _, inv, sv_mem = _rebuilt("demo_walk_dilation")
-    qasm, _ = _stored("demo_walk_dilation")
-    sv = run_statevector(qasm3.loads(qasm.read_text()))
-    worst = float(np.max(np.abs(sv - sv_mem)))
-    assert worst < TOL, f"worst statevector residual {worst:.3g}"
+def test_demo_file_runs_the_users_way_in_aer():
+    # The same for the demo: slow because the default transpile unrolls all 510 walk calls
+    # (1.3M gates) and optimises them: measured here 450 s to transpile and 130 s to run.
+    _check_users_way("demo_walk_dilation")
