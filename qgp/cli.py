@@ -170,11 +170,11 @@ def _fmt(x) -> str:
 
 def _cmd_inspect(args) -> int:
     from .config import load_config
-    from .inspection import inspect_problem
+    from .inspection import inspect_problem, simulation_rows
     from .problem import problem_from_config
 
     cfg = load_config(_resolve_config(args))
-    info = inspect_problem(problem_from_config(cfg), cfg.circuit)
+    info = inspect_problem(problem_from_config(cfg), cfg.circuit, cfg.readout)
     if args.json:
         print(json.dumps(info, indent=2))
         return 0
@@ -198,9 +198,11 @@ def _cmd_inspect(args) -> int:
         ("sparsity s", info["sparsity"]),
         (
             "qubits",
-            f"{q['total']} = system {q['system']} + clock {q['clock']} + flag {q['flag']} + block {q['block']}",
+            f"{q['total']} = system {q['system']} + clock {q['clock']} + flag {q['flag']} + block {q['block']}"
+            + (" (block: upper bound)" if info["simulations"]["block_qubits_is_bound"] else ""),
         ),
-        ("statevector memory", f"{info['statevector_bytes'] / 2**20:.3g} MiB"),
+        ("statevector memory", f"{info['statevector_bytes'] / 2**20:.3g} MiB (the inversion circuit alone)"),
+        *simulation_rows(info),
     ]
     width = max(len(a) for a, _ in rows)
     for a, b in rows:

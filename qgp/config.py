@@ -242,13 +242,23 @@ def _parse_circuit(v: _Validator, t: dict) -> CircuitSettings:
     order = t.get("trotter_order", d.trotter_order)
     if order not in (1, 2) or isinstance(order, bool):
         raise v.fail("circuit", "trotter_order", f"must be 1 or 2, got {order!r}")
+    clock = v.integer(t, "circuit", "clock_qubits", d.clock_qubits, minimum=1, maximum=MAX_CLOCK_QUBITS)
+    evolution_time = v.number(t, "circuit", "evolution_time", None, positive=True)
+    if clock < 2 and evolution_time is None:
+        # What run accepts (qgp.phase_estimation.derived_evolution_time; the error budget needs t for every oracle).
+        raise v.fail(
+            "circuit",
+            "clock_qubits",
+            "= 1 needs [circuit] evolution_time (the derived t = 2π(1 − 2^(1−c))/λ_max is 0 at c = 1); "
+            "set clock_qubits ≥ 2 or give evolution_time",
+        )
     return CircuitSettings(
-        clock_qubits=v.integer(t, "circuit", "clock_qubits", d.clock_qubits, minimum=1, maximum=MAX_CLOCK_QUBITS),
+        clock_qubits=clock,
         encoding=encoding,
         evolution=evolution,
         trotter_steps=v.integer(t, "circuit", "trotter_steps", d.trotter_steps, minimum=1),
         trotter_order=order,
-        evolution_time=v.number(t, "circuit", "evolution_time", None, positive=True),
+        evolution_time=evolution_time,
         filter_floor=v.number(t, "circuit", "filter_floor", None, positive=True),
     )
 

@@ -18,18 +18,22 @@ The amortised strategy uses that the circuits are linear in their input: one sim
 post-selected operator, B = Π·U·(·) ≈ C·Ã⁻¹ for ``inverse`` and E (the flag = 1 slice over every
 clock and block value) for ``inverse_sqrt``, with M = E†E and P(flag = 1) = k̂†Mk̂. Every test
 point's outcome probabilities then follow by linear algebra — still the circuits' answer, with every
-imperfection of phase estimation, product formula and filtering.
+imperfection of phase estimation, product formula and filtering. When that run does not fit in
+memory the reference register is split: each run covers a block of 2^r′ basis columns
+(`_split_reference_operators`), with M read from the uncomputed circuit P₀U†(Σ_k g_k²Π_k)UP₀.
 """
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from collections.abc import Callable
+from dataclasses import dataclass, replace
 
 import numpy as np
 from qiskit import ClassicalRegister, QuantumCircuit, QuantumRegister
 from qiskit.circuit import CircuitInstruction
 
 from .encoding import MultiplexerGate, amplitude_encoding, amplitude_encoding_matrix
+from .errors import QgpError
 from .inversion import FLAG, InversionCircuit, flag_rotation_circuit, rotation_angles, statevector_array
 from .simulate import require_memory, run_counts, run_saved_statevectors, run_statevectors, statevector_bytes
 
@@ -39,6 +43,7 @@ __all__ = [
     "CircuitOperators",
     "reference_circuit",
     "operators_from_reference_run",
+    "reference_run_bytes",
     "hadamard_probabilities",
     "variance_probabilities",
     "hadamard_test_circuit",
@@ -66,29 +71,90 @@ class CircuitOperators:
     M: np.ndarray
     scale_inverse: float
     scale_inverse_sqrt: float
+    #: The simulator runs that produced B and M: dicts with ``what``, ``qubits``, ``runs`` and
+    #: ``columns_per_run`` (the reference register's basis columns each run covered).
+    simulation_runs: tuple = ()
 
 
-def reference_circuit(inv: InversionCircuit) -> QuantumCircuit:
-    """``inv`` preceded by a maximally entangled state Σ_j |j⟩_reference|j⟩_system/√N."""
+def reference_circuit(inv: InversionCircuit, reference_qubits: int | None = None, block: int = 0) -> QuantumCircuit:
+    """``inv`` preceded by a maximally entangled state Σ_j |j⟩_reference|j⟩_system/√N.
+
+    With ``reference_qubits`` = r′ < m (a split reference register) the reference is entangled
+    with the r′ least significant system qubits only and the other m − r′ system qubits are set
+    to ``block``: the state Σ_{j<2^r′} |j⟩_reference|block·2^r′ + j⟩_system/√(2^r′), whose run
+    gives input columns block·2^r′ … (block + 1)·2^r′ − 1 of the circuit's operators.
+    """
     regs = list(inv.circuit.qregs)
     m = inv.n_system_qubits
-    ref = QuantumRegister(m, REFERENCE)
-    qc = QuantumCircuit(*regs, ref, name=f"{inv.circuit.name}-reference")
+    r = m if reference_qubits is None else int(reference_qubits)
+    if not 0 <= r <= m or not 0 <= block < 2 ** (m - r):
+        raise QgpError(f"a reference register of {r} qubits on {m} system qubits has no column block {block}")
+    ref = QuantumRegister(r, REFERENCE)
+    name = f"{inv.circuit.name}-reference" + ("" if r == m else f"-{block}")
+    qc = QuantumCircuit(*regs, ref, name=name)
     system = regs[0]
-    for i in range(m):
+    for i in range(r):
         qc.h(ref[i])
         qc.cx(ref[i], system[i])
+    for i in range(m - r):
+        if (block >> i) & 1:
+            qc.x(system[r + i])
     # copy=False: the instructions are shared with inv.circuit, never modified (large multiplexers).
     qc.compose(inv.circuit, qubits=qc.qubits[: inv.circuit.num_qubits], inplace=True, copy=False)
     return qc
 
 
-def _reference_output(sv: np.ndarray, inv: InversionCircuit) -> np.ndarray:
-    """Output array [r, block, flag, clock, system] for input basis state r (scaled by √N)."""
-    m = inv.n_system_qubits
+def _reference_view(sv: np.ndarray, inv: InversionCircuit) -> np.ndarray:
+    """A view of a reference-register statevector as [r, block, flag, clock, system] (no copy;
+    amplitudes scaled by √(columns) still to apply)."""
+    m, c, b = inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits
     n_inv = inv.circuit.num_qubits
-    per_input = np.asarray(sv).reshape(2**m, 2**n_inv) * np.sqrt(2**m)
-    return np.stack([statevector_array(row, inv) for row in per_input])
+    sv = np.asarray(sv).reshape(-1)
+    return sv.reshape(sv.size >> n_inv, 2**b, 2, 2**c, 2**m)
+
+
+def _postselected_columns(sv: np.ndarray, inv: InversionCircuit) -> np.ndarray:
+    """[system output, input column] on flag = 1, clock = 0, block = 0 of a reference run: the
+    columns of B (a copy; the statevector can be freed)."""
+    view = _reference_view(sv, inv)
+    return (view[:, 0, 1, 0, :] * np.sqrt(view.shape[0])).T
+
+
+# The Gram matrix of the snapshot's rows is formed in chunks of whole (block, clock) slices of at
+# most this many bytes (and of their conjugate): a copy of the whole flag = 0 half of the
+# statevector would add half a statevector to the run's memory. Below it the chunk is everything,
+# as one product.
+_GRAM_CHUNK_BYTES = 1 << 26
+
+
+def _gram_chunk_slices(system_qubits: int, clock_qubits: int, block_qubits: int) -> int:
+    """(block, clock) slices of n×n amplitudes (16·n² bytes each) per Gram chunk."""
+    return max(1, min(2 ** (block_qubits + clock_qubits), _GRAM_CHUNK_BYTES // (16 * 4**system_qubits)))
+
+
+def reference_run_bytes(
+    inversion_qubits: int, system_qubits: int, clock_qubits: int, block_qubits: int, reference_qubits: int, *, snapshot: bool
+) -> int:
+    """Memory of one reference-register run and the arrays read from it.
+
+    The simulator holds the running state (16·2^q bytes, q = inversion + reference qubits; the
+    final save is moved into the result, not copied) plus, with ``snapshot``, the state saved
+    before the rotation (a copy: 2 statevectors; measured here 2.00 with a saved state, 1.01
+    without). Beside them: B and M (16·n² bytes each, n = 2^system_qubits) and, with the
+    snapshot, the Gram chunks (rows and their conjugate, `_GRAM_CHUNK_BYTES` at most each) and
+    one n×n product; without it, the 2^reference_qubits columns read from the run. Not counted:
+    Aer's copy of the circuit's matrices and its own start-up, a fixed ~17 MiB measured for
+    n = 64, c = 8 (peak resident memory 2.0 statevectors + 17 MiB with the snapshot at 21–23
+    qubits, 1.0 + 17 MiB per split run at 21–22 qubits; 5.1 statevectors before the arrays read
+    from the run became views and chunks).
+    """
+    q = inversion_qubits + reference_qubits
+    n2 = 16 * 4**system_qubits
+    operators = 2 * n2
+    if snapshot:
+        chunk = _gram_chunk_slices(system_qubits, clock_qubits, block_qubits) * n2
+        return 2 * statevector_bytes(q) + operators + 2 * chunk + n2
+    return statevector_bytes(q) + operators + 16 * 2**system_qubits * 2**reference_qubits
 
 
 def _shares_prefix(inverse: InversionCircuit, inverse_sqrt: InversionCircuit) -> bool:
@@ -138,6 +204,8 @@ def operators_from_reference_run(
     cap: int | None = None,
     timings: dict | None = None,
     share_prefix: bool = True,
+    reference_qubits: int | None = None,
+    progress: Callable[[str], None] | None = None,
 ) -> CircuitOperators:
     """B and M from one simulator job (``timings``: see `qgp.simulate.run_statevectors`).
 
@@ -147,30 +215,178 @@ def operators_from_reference_run(
     sin(θ_k/2)·ψ on flag = 1 — its E read from ψ without simulating the second circuit. With
     ``share_prefix=False`` (or circuits that do not share) both reference circuits run, as two
     experiments of one job; the two give the same numbers (tests/test_speed_paths.py).
+
+    ``reference_qubits`` = r′ (0 ≤ r′ ≤ m) splits the reference register instead: 2^(m − r′) runs
+    of 2^r′ input columns each (`_split_reference_operators`), one statevector at a time and no
+    saved state — for when the one-run simulation does not fit in memory; the same numbers to
+    round-off (tests/test_inspection.py).
     """
+    if reference_qubits is not None:
+        return _split_reference_operators(
+            inverse, inverse_sqrt, int(reference_qubits), cap=cap, timings=timings, progress=progress
+        )
+    m, c, b = inverse.n_system_qubits, inverse.clock_qubits, inverse.n_block_qubits
     if share_prefix and _shares_prefix(inverse, inverse_sqrt):
         qc = _reference_with_snapshot(inverse)
         n = qc.num_qubits
-        require_memory(2 * statevector_bytes(n), f"the reference-register run on {n} qubits", cap)
+        need = reference_run_bytes(inverse.circuit.num_qubits, m, c, b, m, snapshot=True)
+        require_memory(need, f"the reference-register run on {n} qubits (a saved state and the final one)", cap)
         sv_pre, sv_inv = run_saved_statevectors(qc, [_PHASE_ESTIMATED, _FINAL], cap=cap, timings=timings)
-        out = _reference_output(sv_inv, inverse)
-        B = out[:, 0, 1, 0, :].T
-        pre = _reference_output(sv_pre, inverse)  # flag still 0: pre[:, :, 0] is ψ
+        B = _postselected_columns(sv_inv, inverse)
+        del sv_inv
+        # The flag is still 0 in the saved state: its flag = 0 slice is ψ.
         g = np.sin(rotation_angles(inverse_sqrt.flag_amplitudes) / 2)
-        rows = pre[:, :, 0, :, :] * g[None, None, :, None]
-        M = _gram(rows.reshape(rows.shape[0], -1))
-        return CircuitOperators(B=B, M=M, scale_inverse=inverse.scale, scale_inverse_sqrt=inverse_sqrt.scale)
+        M = _gram_of_slices(sv_pre, inverse, 0, g)
+        del sv_pre
+        runs = ({"what": ONE_RUN, "qubits": n, "runs": 1, "columns_per_run": 2**m},)
+        return CircuitOperators(
+            B=B, M=M, scale_inverse=inverse.scale, scale_inverse_sqrt=inverse_sqrt.scale, simulation_runs=runs
+        )
     circuits = [reference_circuit(inverse), reference_circuit(inverse_sqrt)]
-    for c in circuits:
-        require_memory(statevector_bytes(c.num_qubits), f"the reference-register run on {c.num_qubits} qubits", cap)
-    sv_inv, sv_sqrt = run_statevectors(circuits, cap=cap, timings=timings)
-    out = _reference_output(sv_inv, inverse)
-    B = out[:, 0, 1, 0, :].T  # B[s, r]: system output s for input r
-    out2 = _reference_output(sv_sqrt, inverse_sqrt)
-    # E[(block, clock, system), r] = out2[r, block, 1, clock, system]; M = E†E. Built row-major
-    # as Eᵀ so the product runs on contiguous memory.
-    M = _gram(out2[:, :, 1, :, :].reshape(out2.shape[0], -1))
-    return CircuitOperators(B=B, M=M, scale_inverse=inverse.scale, scale_inverse_sqrt=inverse_sqrt.scale)
+    sv_inv, sv_sqrt = run_statevectors(circuits, cap=cap, timings=timings)  # one job: both states kept
+    B = _postselected_columns(sv_inv, inverse)  # B[s, r]: system output s for input r
+    del sv_inv
+    # E[(block, clock, system), r]: input r's amplitude on (block, flag = 1, clock, system); M = E†E.
+    M = _gram_of_slices(sv_sqrt, inverse_sqrt, 1, None)
+    runs = tuple(
+        {"what": f"{what} with a reference register", "qubits": qc.num_qubits, "runs": 1, "columns_per_run": 2**m}
+        for what, qc in (("inversion (inverse)", circuits[0]), ("inversion (inverse_sqrt)", circuits[1]))
+    )
+    return CircuitOperators(
+        B=B, M=M, scale_inverse=inverse.scale, scale_inverse_sqrt=inverse_sqrt.scale, simulation_runs=runs
+    )
+
+
+#: What each kind of reference-register run is (the ``what`` of `CircuitOperators.simulation_runs`
+#: and of the simulation plan in qgp.inspection).
+ONE_RUN = "inversion with a reference register: B and M in one run (state saved before the rotation)"
+SPLIT_RUN = "inversion with a split reference register: columns of B and M per run"
+SPLIT_RUN_B = "inversion with a split reference register: columns of B per run"
+SPLIT_GRAM_RUN = "uncomputed inverse_sqrt circuit with rotation g², split reference register: columns of M per run"
+
+
+def _gram_of_slices(sv: np.ndarray, inv: InversionCircuit, flag: int, g: np.ndarray | None) -> np.ndarray:
+    """Σ over (block, clock) of conj(R)·Rᵀ, R[r, s] = √N·amplitude[r, block, flag, clock, s]·g_clock:
+    M = E†E from a reference run, in chunks of whole (block, clock) slices (`_GRAM_CHUNK_BYTES`)
+    so that no copy of half the statevector is made. When every slice fits in one chunk this is
+    the single product of the unchunked rows."""
+    view = _reference_view(sv, inv)
+    n_in, nb, _, nc, _ = view.shape
+    root = np.sqrt(n_in)
+    slices = _gram_chunk_slices(inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits)
+
+    def rows(b0, b1, k0, k1):
+        r = view[:, b0:b1, flag, k0:k1, :] * root
+        if g is not None:
+            r = r * np.asarray(g)[None, None, k0:k1, None]
+        return r.reshape(n_in, -1)
+
+    if slices >= nb * nc:
+        return _gram(rows(0, nb, 0, nc))
+    M = np.zeros((n_in, n_in), dtype=complex)
+    if slices >= nc:
+        step = slices // nc
+        for b0 in range(0, nb, step):
+            M += _gram(rows(b0, min(nb, b0 + step), 0, nc))
+    else:
+        for b0 in range(nb):
+            for k0 in range(0, nc, slices):
+                M += _gram(rows(b0, b0 + 1, k0, min(nc, k0 + slices)))
+    return M
+
+
+def _same_gram_operator(inverse: InversionCircuit, inverse_sqrt: InversionCircuit) -> bool:
+    """Whether ``inverse``'s post-selected block is ``inverse_sqrt``'s M.
+
+    M = E†E = P₀·U†(Σ_k g_k² Π_k)U·P₀ (U the phase estimation, Π_k the projector on clock value
+    k, g the ``inverse_sqrt`` amplitudes: its rotation acts on a fresh flag, so
+    ⟨Ex|Ey⟩ = Σ_k g_k²⟨Ux|Π_k|Uy⟩), and ``inverse``'s block is P₀·U†(Σ_k f_k Π_k)U·P₀. They are
+    one operator when both circuits share U and f = g² — as infer builds them: f = C/λ̃ and
+    g = √(C/λ̃) with one C and one admitted set.
+    """
+    return _shares_prefix(inverse, inverse_sqrt) and bool(
+        np.max(np.abs(inverse_sqrt.flag_amplitudes**2 - inverse.flag_amplitudes)) <= 1e-14
+    )
+
+
+def _gram_inversion(inverse_sqrt: InversionCircuit) -> InversionCircuit:
+    """The uncomputed circuit whose post-selected block is ``inverse_sqrt``'s M = E†E: its phase
+    estimation, the rotation with amplitudes g², and the inverse phase estimation (see
+    `_same_gram_operator`)."""
+    from .phase_estimation import inverse_phase_estimation_circuit, phase_estimation_circuit
+
+    oracle = inverse_sqrt.oracle
+    if oracle is None:
+        raise QgpError("splitting the reference register needs the phase oracle the inverse_sqrt circuit was built with")
+    regs = list(inverse_sqrt.circuit.qregs)
+    system, clock, flag = regs[0], regs[1], regs[2]
+    block = list(regs[3]) if len(regs) > 3 else []
+    g2 = inverse_sqrt.flag_amplitudes**2
+    qc = QuantumCircuit(*regs, name=f"{inverse_sqrt.circuit.name}-gram")
+    body = [*system, *clock, *block]
+    qc.compose(phase_estimation_circuit(oracle), qubits=body, inplace=True, copy=False)
+    rotation = flag_rotation_circuit(rotation_angles(g2), inverse_sqrt.form)
+    qc.compose(rotation, qubits=[*clock, flag[0]], inplace=True, copy=False)
+    qc.compose(inverse_phase_estimation_circuit(oracle), qubits=body, inplace=True, copy=False)
+    return replace(inverse_sqrt, circuit=qc, flag_amplitudes=g2, uncomputed=True)
+
+
+def _split_reference_operators(
+    inverse: InversionCircuit,
+    inverse_sqrt: InversionCircuit,
+    reference_qubits: int,
+    *,
+    cap: int | None,
+    timings: dict | None,
+    progress: Callable[[str], None] | None,
+) -> CircuitOperators:
+    """B and M from a reference register of r′ = ``reference_qubits`` qubits: run v prepares
+    Σ_{j<2^r′}|j⟩_reference|v·2^r′ + j⟩_system/√(2^r′) (`reference_circuit`) and gives input
+    columns v·2^r′ … (v + 1)·2^r′ − 1 of B: the same linear map, a block of basis columns at a time.
+
+    M's columns cannot come from a state saved per block (M = E†E pairs the columns of every
+    block), so they come from the uncomputed circuit P₀·U†(Σ_k g_k² Π_k)U·P₀ (`_gram_inversion`),
+    which is ``inverse`` itself for the pair infer builds (`_same_gram_operator`): then each run
+    gives columns of both. One statevector per run, freed before the next.
+    """
+    m, c, b = inverse.n_system_qubits, inverse.clock_qubits, inverse.n_block_qubits
+    r = reference_qubits
+    if not 0 <= r <= m:
+        raise QgpError(f"the reference register has {m} qubits; it cannot be split into runs of {r}")
+    if not inverse.uncomputed:
+        raise QgpError("splitting the reference register needs the inverse circuit with its uncompute")
+    n_runs, width = 2 ** (m - r), 2**r
+    q = inverse.circuit.num_qubits + r
+    need = reference_run_bytes(inverse.circuit.num_qubits, m, c, b, r, snapshot=False)
+    require_memory(need, f"each run of the split reference register ({q} qubits)", cap)
+    same = _same_gram_operator(inverse, inverse_sqrt)
+    targets = [inverse] if same else [inverse, _gram_inversion(inverse_sqrt)]
+    if progress is not None:
+        if n_runs > 1:
+            progress(f"reference register split into {n_runs} runs of 2^{r} columns")
+        else:
+            progress(f"reference register in one run of 2^{r} columns, without the state saved before the rotation")
+    operators = []
+    for inv in targets:
+        out = np.empty((2**m, 2**m), dtype=complex)
+        for v in range(n_runs):
+            [cols] = run_statevectors(
+                [reference_circuit(inv, r, v)], cap=cap, timings=timings, reduce=lambda _, sv, inv=inv: _postselected_columns(sv, inv)
+            )
+            out[:, v * width : (v + 1) * width] = cols
+        operators.append(out)
+    B = operators[0]
+    M = B.copy() if same else operators[1]
+    if same:
+        runs = ({"what": SPLIT_RUN, "qubits": q, "runs": n_runs, "columns_per_run": width},)
+    else:
+        runs = (
+            {"what": SPLIT_RUN_B, "qubits": q, "runs": n_runs, "columns_per_run": width},
+            {"what": SPLIT_GRAM_RUN, "qubits": q, "runs": n_runs, "columns_per_run": width},
+        )
+    return CircuitOperators(
+        B=B, M=M, scale_inverse=inverse.scale, scale_inverse_sqrt=inverse_sqrt.scale, simulation_runs=runs
+    )
 
 
 # Below this many multiply-adds the Gram matrix is formed by einsum's own loops (≤ ~10 ms), not
@@ -280,7 +496,8 @@ def per_point_probabilities(
     cap: int | None = None,
     timings: dict | None = None,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Exact (P₀, P₁, P_flag) from one full circuit per test point, all in one simulator job.
+    """Exact (P₀, P₁, P_flag) from one full circuit per test point, in as few simulator jobs as
+    the memory cap allows (each state is reduced to its probabilities as its job returns).
 
     The shared body is built once and every circuit is native to Aer, so nothing is transpiled.
     """
@@ -288,20 +505,29 @@ def per_point_probabilities(
     template = _HadamardTemplate(qpe, inverse)
     mean_circuits = [template.circuit(khat[:, j], yhat) for j in range(n_test)]
     var_circuits = [variance_circuit(sqrt_body, khat[:, j]) for j in range(n_test)]
-    states = run_statevectors(mean_circuits + var_circuits, cap=cap, timings=timings)
-    p0, p1 = _hadamard_outcomes(states[:n_test], inverse)
-    pf = np.array([np.sum(np.abs(statevector_array(sv, sqrt_inv)[:, 1]) ** 2) for sv in states[n_test:]])
+
+    def reduce(i, sv):
+        if i < n_test:
+            return _hadamard_outcome(sv, inverse)
+        return float(np.sum(np.abs(statevector_array(sv, sqrt_inv)[:, 1]) ** 2))
+
+    out = run_statevectors(mean_circuits + var_circuits, cap=cap, timings=timings, reduce=reduce)
+    p0 = np.array([o[0] for o in out[:n_test]])
+    p1 = np.array([o[1] for o in out[:n_test]])
+    pf = np.array(out[n_test:])
     return p0, p1, pf
 
 
 def _hadamard_outcomes(states, inverse: InversionCircuit) -> tuple[np.ndarray, np.ndarray]:
-    """P(probe = b, Π) for b = 0, 1 from Hadamard-test statevectors (the probe is the top qubit)."""
-    p = np.empty((2, len(states)))
-    for j, sv in enumerate(states):
-        arr = np.asarray(sv).reshape(2, -1)
-        for b in (0, 1):
-            p[b, j] = np.sum(np.abs(statevector_array(arr[b], inverse)[0, 1, 0, :]) ** 2)
-    return p[0], p[1]
+    """(P₀, P₁) arrays from Hadamard-test statevectors (`_hadamard_outcome` of each)."""
+    p = np.array([_hadamard_outcome(sv, inverse) for sv in states]).reshape(-1, 2)
+    return p[:, 0], p[:, 1]
+
+
+def _hadamard_outcome(sv, inverse: InversionCircuit) -> tuple[float, float]:
+    """P(probe = b, Π) for b = 0, 1 from one Hadamard-test statevector (the probe is the top qubit)."""
+    arr = np.asarray(sv).reshape(2, -1)
+    return tuple(float(np.sum(np.abs(statevector_array(arr[b], inverse)[0, 1, 0, :]) ** 2)) for b in (0, 1))
 
 
 def per_point_hadamard(
@@ -316,7 +542,8 @@ def per_point_hadamard(
     """(P₀, P₁) of the Hadamard test of ⟨left_j|C·Ã⁻¹|right_j⟩ for each column pair j."""
     template = _HadamardTemplate(qpe, inverse)
     circuits = [template.circuit(left[:, j], right[:, j]) for j in range(left.shape[1])]
-    return _hadamard_outcomes(run_statevectors(circuits, cap=cap, timings=timings), inverse)
+    out = run_statevectors(circuits, cap=cap, timings=timings, reduce=lambda _, sv: _hadamard_outcome(sv, inverse))
+    return np.array([o[0] for o in out]), np.array([o[1] for o in out])
 
 
 def per_point_counts(

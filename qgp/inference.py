@@ -3,10 +3,13 @@
     result = infer(problem, CircuitSettings(...), ReadoutSettings(...))
 
 builds the ``inverse`` and ``inverse_sqrt`` circuits for the padded A (given only A's a-priori
-eigenvalue bounds), simulates them (amortised: one reference-register run each; per-point: one
-full circuit per test point), turns outcome probabilities — exact, or sampled with ``shots`` —
+eigenvalue bounds), simulates them (amortised: one reference-register run, or the reference
+register split into as many runs as the memory cap requires; per-point: one full circuit per test
+point), turns outcome probabilities — exact, or sampled with ``shots`` —
 into predictive means and latent variances (qgp.estimators), and sets them beside the exact GP
-with an error budget that adds one imperfection at a time.
+with an error budget that adds one imperfection at a time. Before any of it the memory guard
+checks every simulation the chosen strategy will make (`qgp.inspection.simulation_plan`, the plan
+``qgp inspect`` prints) and the result lists the runs made (``simulation_runs``).
 """
 
 from __future__ import annotations
@@ -37,11 +40,12 @@ from .estimators import (
 )
 from .filter_model import model_operator
 from .gp import count_nonpositive, nlpd, rmse
+from .inspection import check_clock_qubits, simulation_plan
 from .inversion import InversionCircuit, build_inversion, postselected_system_amplitudes, rotation_constants
 from .phase_estimation import PhaseOracle, derived_evolution_time, phase_estimation_circuit, phase_oracle
 from .problem import Problem
 from .settings import CircuitSettings, ReadoutSettings
-from .simulate import default_memory_cap, require_memory, run_statevectors, statevector_bytes
+from .simulate import default_memory_cap, run_statevectors
 from .system import eigenvalue_bounds
 
 __all__ = [
@@ -97,6 +101,10 @@ class InferenceResult:
     operators: CircuitOperators | None
     elapsed_seconds: float
     timings: dict = field(default_factory=dict)
+    #: The simulator runs behind the numbers: dicts with ``what``, ``qubits``, ``runs``,
+    #: ``columns_per_run`` (reference-register columns per run, None without one) and
+    #: ``from_cache`` (True: made by an earlier call with the same circuits, none in this one).
+    simulation_runs: tuple = ()
 
     @property
     def qubits(self) -> dict[str, int]:
@@ -169,6 +177,7 @@ class InferenceResult:
             "shots_needed": self.shots_needed,
             "elapsed_seconds": self.elapsed_seconds,
             "timings": self.timings,
+            "simulation_runs": [dict(r) for r in self.simulation_runs],
         }
         if p.y_test is not None:
             noise = p.noise_variance
@@ -196,20 +205,11 @@ def _rel_rmse(err: np.ndarray, ref: np.ndarray) -> float:
     return math.sqrt(float(np.mean(err**2))) / scale if scale > 0 else math.inf
 
 
-def _block_qubits(problem: Problem, circuit: CircuitSettings) -> int:
-    if circuit.evolution != "walk":
-        return 0
-    if circuit.encoding == "dilation":
-        return 1
-    from .encoding import pauli_decomposition
-
-    return max(1, math.ceil(math.log2(len(pauli_decomposition(problem.A_padded)))))
-
-
 def planned_qubits(problem: Problem, circuit: CircuitSettings, readout: ReadoutSettings) -> int:
-    """Largest simulated width: the inversion plus a reference register (amortised) or a probe."""
-    base = problem.system_qubits + circuit.clock_qubits + 1 + _block_qubits(problem, circuit)
-    return base + (problem.system_qubits if readout.strategy == "amortised" else 1)
+    """Largest simulated width of ``readout.strategy``: the inversion plus a reference register
+    (amortised; split when the one run does not fit) or a probe (per-point). See
+    `qgp.inspection.simulation_plan`."""
+    return simulation_plan(problem, circuit, readout).widest()
 
 
 def _unit_columns(K: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -450,8 +450,12 @@ def infer(
     t_start = time.perf_counter()
     timings: dict[str, float] = {}
     cap = readout.memory_cap_bytes if readout.memory_cap_bytes is not None else default_memory_cap()
-    width = planned_qubits(problem, circuit, readout)
-    require_memory(statevector_bytes(width), f"the {readout.strategy} simulation on {width} qubits", cap)
+    # The memory guard, before any work that grows with n (the LCU's Pauli decomposition included):
+    # every simulation the chosen strategy makes, from the register sizes (qgp.inspection).
+    check_clock_qubits(circuit)
+    plan = simulation_plan(problem, circuit, readout, cap=cap)
+    plan.require()
+    width = plan.widest()
 
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)
@@ -459,18 +463,38 @@ def infer(
     say(f"building circuits: {circuit.evolution} oracle, {circuit.clock_qubits} clock qubits, {width} qubits simulated")
     inv, inv_sqrt = _cached_pair(A, circuit, bounds)
     timings["build"] = time.perf_counter() - t0
+    if plan.block.is_bound or plan.block.qubits != inv.n_block_qubits:
+        # The LCU's block register was an upper bound before the build: plan with the real one.
+        plan = simulation_plan(problem, circuit, readout, cap=cap, block_qubits=inv.n_block_qubits)
+        plan.require()
 
     yhat, y_norm, khat, k_norms = _unit_inputs(problem)
 
     t0 = time.perf_counter()
     sim_times: dict[str, float] = {"transpile": 0.0, "simulate": 0.0}
     operators = None
+    runs: list[dict] = []
     if readout.strategy == "amortised":
-        say("simulating the inversion once with a reference register (amortised)")
-        key = _inversion_key(A, circuit, "operators", bounds)
-        operators = _cached(
-            _OPERATORS, key, lambda: operators_from_reference_run(inv, inv_sqrt, cap=cap, timings=sim_times)
-        )
+        ref = plan.reference_qubits
+        if ref is None:
+            say("simulating the inversion once with a reference register (amortised)")
+        else:
+            say(
+                "simulating the inversion with a split reference register (amortised): the one run on "
+                f"{problem.system_qubits + inv.circuit.num_qubits} qubits with a saved state does not fit under "
+                f"the memory cap of {cap / 2**30:.3g} GiB"
+            )
+        key = _inversion_key(A, circuit, "operators" if ref is None else f"operators-split-{ref}", bounds)
+        made: list[bool] = []
+
+        def simulate_operators():
+            made.append(True)
+            return operators_from_reference_run(
+                inv, inv_sqrt, cap=cap, timings=sim_times, reference_qubits=ref, progress=say
+            )
+
+        operators = _cached(_OPERATORS, key, simulate_operators)
+        runs = [{**r, "from_cache": not made} for r in operators.simulation_runs]
         v = operators.B @ yhat
         p0, p1 = hadamard_probabilities(v, khat)
         pf = variance_probabilities(operators.M, khat)
@@ -480,6 +504,10 @@ def infer(
         say(f"simulating {3 * problem.n_test + 1} per-point circuits")
         qpe = _qpe_body(A, circuit, bounds, inv)
         p0, p1, pf = per_point_probabilities(qpe, inv, inv_sqrt.circuit, inv_sqrt, yhat, khat, cap=cap, timings=sim_times)
+        runs = [
+            {"what": r.what, "qubits": r.qubits, "runs": r.runs, "columns_per_run": None, "from_cache": False}
+            for r in plan.per_point
+        ]
         h0, h1 = per_point_hadamard(qpe, inv, khat, khat, cap=cap, timings=sim_times)
         had = h0 - h1
         # The inversion on ŷ alone: the cached circuit with the state preparation in front.
@@ -564,4 +592,5 @@ def infer(
         operators=operators,
         elapsed_seconds=time.perf_counter() - t_start,
         timings=timings,
+        simulation_runs=tuple(runs),
     )

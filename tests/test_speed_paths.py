@@ -212,6 +212,24 @@ def test_amortised_operators_match_gate_level_circuits(oracle):
     assert is_native(reference_circuit(inv)) and is_native(reference_circuit(sq))
 
 
+@pytest.mark.parametrize("oracle", ORACLES)
+def test_split_reference_register_matches_gate_level_circuits(oracle):
+    # A reference register split into runs of 2^r′ columns (qgp.estimators._split_reference_operators)
+    # is the same linear map applied a block of basis columns at a time, and M = E†E is read from the
+    # uncomputed circuit P₀U†(Σ g_k²Π_k)UP₀: both equal qiskit's gate-level operators to round-off.
+    a = _spd(4, 13)
+    s = CircuitSettings(clock_qubits=3, **oracle)
+    bounds = _bounds(a)
+    inv = build_inversion(a, s, "inverse", bounds, form="simulation")
+    sq = build_inversion(a, s, "inverse_sqrt", bounds, form="simulation", oracle=inv.oracle)
+    B_ref, M_ref = _gate_operators(a, s, bounds)
+    for r in (2, 1, 0):
+        ops = operators_from_reference_run(inv, sq, reference_qubits=r)
+        rb, rm = np.max(np.abs(ops.B - B_ref)), np.max(np.abs(ops.M - M_ref))
+        assert max(rb, rm) < TOL, f"r′ = {r}: B differs by {rb:.3g}, M by {rm:.3g}"
+        assert [(x["runs"], x["columns_per_run"]) for x in ops.simulation_runs] == [(2 ** (2 - r), 2**r)]
+
+
 def test_circuits_built_separately_do_not_share_a_prefix():
     a = _spd(4, 14)
     s = CircuitSettings(clock_qubits=3, evolution="exact")
