@@ -149,7 +149,8 @@ def provenance(result: InferenceResult) -> dict[str, str]:
             "are then computed in numpy from B·ŷ and k̂* (the Hadamard-test circuit itself is not simulated)",
             "variance_quantum": "the same Aer run saves the state just before the flag rotation; the `inverse_sqrt` "
             "rotation is applied to that saved state exactly in numpy (amplitude sin(θ_k/2) on flag = 1), giving "
-            "M = E†E and P(flag = 1) = k̂*ᵀMk̂* (the `inverse_sqrt` circuit is not simulated separately)",
+            "M = E†E and P(flag = 1) = k̂*ᵀMk̂* (the `inverse_sqrt` circuit is not simulated separately); when the "
+            "reference register is split, M is read from each run's uncomputed circuit instead (docs/method.md)",
             "variance_quantum_hadamard": "numpy, from the same B: k̂*ᵀBk̂*",
             "success_probability_inversion": "numpy, from the same B: ‖B·ŷ‖²",
         }
