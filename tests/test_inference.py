@@ -184,14 +184,12 @@ def test_more_clock_qubits_help(circuit, which):
     assert hi["variance_max_abs_error"] < lo["variance_max_abs_error"]
     # The mean error at c = 8 is within the filter model's prediction for the exact oracle
     # (phase-estimation resolution and filtering) plus the chosen oracle's own increment.
+    # For the exact oracle the model stage (closed-form filter model, numpy) and the simulated
+    # circuit (Aer) are independent computations of the same error.
     budget = hi["error_budget"]
     model_err = budget["stages"]["phase_estimation_and_filter"]["mean_max_abs_error"]
     if circuit.evolution in ("exact",):
-        assert abs(hi["mean_max_abs_error"] - model_err) < 1e-9
-    total = budget["total"]["mean_max_abs_error"]
-    assert total == pytest.approx(hi["mean_max_abs_error"], abs=1e-12)
-    incs = budget["increments"]
-    assert sum(v["mean_max_abs_error"] for v in incs.values()) == pytest.approx(total, abs=1e-12)
+        assert abs(hi["mean_max_abs_error"] - model_err) < 1e-9, abs(hi["mean_max_abs_error"] - model_err)
 
 
 def test_shots_reproducible_and_error_budget_adds_up():
@@ -205,9 +203,18 @@ def test_shots_reproducible_and_error_budget_adds_up():
     assert not np.array_equal(a.mean_quantum, c.mean_quantum)
     s = a.summary()
     assert s["post_selection_failures"] > 0
-    assert set(s["error_budget"]["order"]) == {"phase_estimation_and_filter", "oracle", "shots"}
-    total = sum(v["variance_rmse"] for v in s["error_budget"]["increments"].values())
-    assert total == pytest.approx(s["error_budget"]["total"]["variance_rmse"], abs=1e-12)
+    assert s["error_budget"]["order"] == ["phase_estimation_and_filter", "oracle", "shots"]
+    # The shot stage adds what the standard errors say it should (issue 10: the old check, that the
+    # increments sum to the total, held by construction). (estimate − exact-probability estimate)/SE
+    # is ~N(0, 1) per test point (normal approximation to the multinomial), so over the 41 points
+    # its RMS is √(χ²₄₁/41): in [0.6, 1.5] with probability > 1 − 1e-4 (scipy.stats.chi2).
+    exact_probs = infer(p, circuit, EXACT, progress=None)
+    for est, ref, se in (
+        (a.mean_quantum, exact_probs.mean_quantum, a.mean_quantum_se),
+        (a.variance_quantum, exact_probs.variance_quantum, a.variance_quantum_se),
+    ):
+        rms = float(np.sqrt(np.mean(((est - ref) / se) ** 2)))
+        assert 0.6 <= rms <= 1.5, f"RMS of (shot estimate − exact)/SE = {rms:.3f} over {p.n_test} points"
 
 
 def test_shot_confidence_intervals_cover_at_the_stated_rate():
@@ -227,6 +234,27 @@ def test_shot_confidence_intervals_cover_at_the_stated_rate():
         hits_var += int(np.sum(np.abs(est.variance - r.variance_quantum) <= 1.96 * est.variance_se))
         total += p.n_test
     # Test points share a draw only through the seed stream; each interval is its own Bernoulli trial.
+    for hits in (hits_mean, hits_var):
+        test = binomtest(hits, total, 0.95)
+        assert test.pvalue > 1e-3, f"coverage {hits / total:.4f} over {total} intervals (p = {test.pvalue:.2g})"
+
+
+def test_aer_sampled_confidence_intervals_cover_at_the_stated_rate():
+    # The per-point strategy draws its counts from Aer's own sampler (measured circuits), not numpy:
+    # its intervals must cover the exact-probability answer ~95% of the time too (binomial test as
+    # above; 60 seeds × 8 test points = 480 intervals per quantity).
+    rng = np.random.default_rng(7)
+    X = rng.uniform(0, 5, size=(6, 2))
+    p = build_problem(X, np.sin(X[:, 0]) + 0.3 * X[:, 1], RBF(amplitude=1.0, lengthscale=1.3),
+                      target_condition=8.0, X_test=rng.uniform(0, 5, size=(8, 2)))
+    circuit = CircuitSettings(clock_qubits=4, evolution="exact")
+    ref = infer(p, circuit, ReadoutSettings(strategy="per-point"), progress=None)
+    hits_mean = hits_var = total = 0
+    for seed in range(60):
+        r = infer(p, circuit, ReadoutSettings(strategy="per-point", shots=4000, seed=seed), progress=None)
+        hits_mean += int(np.sum(np.abs(r.mean_quantum - ref.mean_quantum) <= 1.96 * r.mean_quantum_se))
+        hits_var += int(np.sum(np.abs(r.variance_quantum - ref.variance_quantum) <= 1.96 * r.variance_quantum_se))
+        total += p.n_test
     for hits in (hits_mean, hits_var):
         test = binomtest(hits, total, 0.95)
         assert test.pvalue > 1e-3, f"coverage {hits / total:.4f} over {total} intervals (p = {test.pvalue:.2g})"
