@@ -243,7 +243,7 @@ def test_aer_sampled_confidence_intervals_cover_at_the_stated_rate():
     # The per-point strategy draws its counts from Aer's own sampler (measured circuits), not numpy:
     # its intervals must cover the exact-probability answer ~95% of the time too (binomial test as
     # above; 60 seeds × 8 test points = 480 intervals per quantity).
-    rng = np.random.default_rng(7)
+    rng = np.random.default_rng(3)  # the inputs of _random_problem, with 8 test points
     X = rng.uniform(0, 5, size=(6, 2))
     p = build_problem(X, np.sin(X[:, 0]) + 0.3 * X[:, 1], RBF(amplitude=1.0, lengthscale=1.3),
                       target_condition=8.0, X_test=rng.uniform(0, 5, size=(8, 2)))
