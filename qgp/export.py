@@ -62,6 +62,7 @@ from qgp.resources import (
     DecomposedCircuit,
     GateInversion,
     decompose_circuit,
+    gate_counts_by_basis,
     gate_inversion,
     resources_of,
     size_estimate,
@@ -407,21 +408,6 @@ def _refuse_if_too_large(A, settings: CircuitSettings, what: str) -> None:
         )
 
 
-def _gate_counts(dec: DecomposedCircuit) -> dict:
-    """Gate counts and depth of a decomposed circuit per basis (as `qgp.resources` reports them)."""
-    out = {}
-    for key, basis in BASES.items():
-        counts = dec.gate_counts(basis)
-        out[key] = {
-            "basis": list(basis),
-            "counts": counts,
-            "cx": int(counts.get("cx", 0)),
-            "total": int(sum(counts.values())),
-            "depth": dec.depth(basis),
-        }
-    return out
-
-
 @dataclass(frozen=True)
 class HadamardPoint:
     """A test point's Hadamard test: what it prepares and the constants that turn P₀ − P₁ into a mean.
@@ -558,7 +544,7 @@ def export_inversions(
         file, dec, texts[file] = _hadamard_text(inv, b, point, title, measure=measure)
         qubits = dict(dec.registers)
         qubits["total"] = dec.num_qubits
-        doc["gate_counts"][file] = _gate_counts(dec)
+        doc["gate_counts"][file] = gate_counts_by_basis(dec)
         doc["resources"][file] = {"qubits": qubits, "gate_counts": doc["gate_counts"][file]}
         doc["test_point"] = {
             "index": point.index,

@@ -56,6 +56,7 @@ from qgp.phase_estimation import CLOCK, derived_evolution_time
 from qgp.settings import CircuitSettings, Rotation
 
 __all__ = [
+    "gate_counts_by_basis",
     "BASES",
     "OPTIMIZATION_LEVEL",
     "SYNTHESIS_LIMIT",
@@ -674,7 +675,8 @@ def _qubits(m: int, c: int, k: int) -> dict[str, int]:
     return q
 
 
-def _gate_counts(dec: DecomposedCircuit) -> dict[str, dict]:
+def gate_counts_by_basis(dec: DecomposedCircuit) -> dict[str, dict]:
+    """Gate counts, CX count, total and depth of a decomposed circuit for each basis of ``BASES``."""
     out = {}
     for key, basis in BASES.items():
         counts = dec.gate_counts(basis)
@@ -701,7 +703,7 @@ def resources_of(gi: GateInversion, *, estimate: SizeEstimate | None = None) -> 
         t=inv.evolution_time,
         uncomputed=inv.uncomputed,
         prepared=gi.prepared,
-        gate_counts=_gate_counts(gi.decomposed),
+        gate_counts=gate_counts_by_basis(gi.decomposed),
         skipped=None,
         estimate=estimate,
     )
