@@ -23,14 +23,14 @@ from pathlib import Path
 import numpy as np
 import scipy.linalg
 
-from qgp.bench import _bench_problem
-from qgp.estimators import operators_from_reference_run, sample_hadamard
-from qgp.inference import _cached_pair, _unit_inputs, _with_preparation, clear_caches, infer
-from qgp.inversion import build_inversion, statevector_array
-from qgp.phase_estimation import _squares
+from qgp.tools.bench import _bench_problem
+from qgp.readout.estimators import operators_from_reference_run, sample_hadamard
+from qgp.readout.inference import _cached_pair, _unit_inputs, _with_preparation, clear_caches, infer
+from qgp.circuits.inversion import build_inversion, statevector_array
+from qgp.circuits.phase_estimation import _squares
 from qgp.settings import CircuitSettings, ReadoutSettings
-from qgp.simulate import prepare_for_simulator, run_statevectors, simulator
-from qgp.system import eigenvalue_bounds
+from qgp.readout.simulate import prepare_for_simulator, run_statevectors, simulator
+from qgp.classical.system import eigenvalue_bounds
 
 
 def _alternate(plain, fast, repeats: int) -> tuple[float, float, object, object]:
@@ -271,7 +271,7 @@ def thread_pinning(c: int = 16) -> dict:
 
 
 def _child(c: int, threads: int) -> None:
-    from qgp.simulate import set_threads
+    from qgp.readout.simulate import set_threads
 
     set_threads(threads)
     problem = _bench_problem(2)

@@ -15,8 +15,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import QgpError
-from .settings import (
+from qgp.errors import QgpError
+from qgp.settings import (
     MAX_ABS_VALUE,
     MAX_SHOTS,
     CircuitSettings,
@@ -245,7 +245,7 @@ def _parse_circuit(v: _Validator, t: dict) -> CircuitSettings:
     clock = v.integer(t, "circuit", "clock_qubits", d.clock_qubits, minimum=1, maximum=MAX_CLOCK_QUBITS)
     evolution_time = v.number(t, "circuit", "evolution_time", None, positive=True)
     if clock < 2 and evolution_time is None:
-        # What run accepts (qgp.phase_estimation.derived_evolution_time; the error budget needs t for every oracle).
+        # What run accepts (qgp.circuits.phase_estimation.derived_evolution_time; the error budget needs t for every oracle).
         raise v.fail(
             "circuit",
             "clock_qubits",

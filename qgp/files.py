@@ -22,7 +22,7 @@ from collections.abc import Iterable, Iterator
 from pathlib import Path
 from typing import IO
 
-from .errors import QgpError
+from qgp.errors import QgpError
 
 __all__ = [
     "atomic_open",

@@ -1,4 +1,4 @@
-"""The catalogue of reference circuits in circuits/ (qgp.export.build_catalogue)."""
+"""The catalogue of reference circuits in circuits/ (qgp.circuits.qasm.build_catalogue)."""
 
 from __future__ import annotations
 
@@ -11,11 +11,11 @@ import pytest
 from qiskit import qasm3, transpile
 from qiskit_aer import AerSimulator
 
-from qgp.encoding import normalised_amplitudes
-from qgp.export import CATALOGUE, REGENERATE_COMMAND, catalogue_entry, fused_circuit, gate_counts_by_origin, main
-from qgp.inversion import build_inversion, statevector_array
-from qgp.resources import gate_inversion, resources_of
-from qgp.simulate import run_statevector
+from qgp.circuits.encoding import normalised_amplitudes
+from qgp.circuits.qasm import CATALOGUE, REGENERATE_COMMAND, catalogue_entry, fused_circuit, gate_counts_by_origin, main
+from qgp.circuits.inversion import build_inversion, statevector_array
+from qgp.circuits.resources import gate_inversion, resources_of
+from qgp.readout.simulate import run_statevector
 
 CIRCUITS = Path(__file__).resolve().parents[1] / "circuits"
 

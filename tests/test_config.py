@@ -8,12 +8,12 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from qgp.cli import main
+from qgp.tools.cli import main
 from qgp.config import load_config, load_dataset
 from qgp.demo import demo_config_path
 from qgp.errors import QgpError
-from qgp.problem import build_problem, problem_from_config
-from qgp.kernels import RBF
+from qgp.classical.problem import build_problem, problem_from_config
+from qgp.classical.kernels import RBF
 
 TRAIN = "x,y\n0.0,1.0\n1.0,2.0\n2.5,0.5\n"
 
@@ -158,9 +158,9 @@ def test_cli_error_is_one_line(tmp_path, capsys):
 
 
 def test_console_script_version_and_help():
-    out = subprocess.run([sys.executable, "-m", "qgp.cli", "--version"], capture_output=True, text=True)
+    out = subprocess.run([sys.executable, "-m", "qgp.tools.cli", "--version"], capture_output=True, text=True)
     assert out.returncode == 0 and out.stdout.startswith("qgp ")
-    out = subprocess.run([sys.executable, "-m", "qgp.cli", "inspect", "--help"], capture_output=True, text=True)
+    out = subprocess.run([sys.executable, "-m", "qgp.tools.cli", "inspect", "--help"], capture_output=True, text=True)
     assert out.returncode == 0 and "--json" in out.stdout
 
 

@@ -1,4 +1,4 @@
-"""Amplitude encoding, Pauli decomposition and block encodings (qgp.encoding)."""
+"""Amplitude encoding, Pauli decomposition and block encodings (qgp.circuits.encoding)."""
 
 from __future__ import annotations
 
@@ -10,7 +10,7 @@ from qiskit import transpile
 from qiskit.quantum_info import Operator, SparsePauliOp, Statevector
 from qiskit_aer import AerSimulator
 
-from qgp.encoding import (
+from qgp.circuits.encoding import (
     amplitude_encoding,
     block_encoding,
     dilation_block_encoding,

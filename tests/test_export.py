@@ -1,4 +1,4 @@
-"""OpenQASM 3 export of the inversion circuits (qgp.export, `qgp export`)."""
+"""OpenQASM 3 export of the inversion circuits (qgp.circuits.qasm, `qgp export`)."""
 
 from __future__ import annotations
 
@@ -12,10 +12,10 @@ import pytest
 from qiskit import qasm3, transpile
 from qiskit_aer import AerSimulator
 
-from qgp.cli import main as cli_main
+from qgp.tools.cli import main as cli_main
 from qgp.config import load_config
 from qgp.errors import QgpError
-from qgp.export import (
+from qgp.circuits.qasm import (
     CATALOGUE,
     INVERSION_FILE,
     INVERSION_SQRT_FILE,
@@ -24,13 +24,13 @@ from qgp.export import (
     fused_circuit,
     hadamard_file,
 )
-from qgp.filter_model import model_operator
-from qgp.inference import infer
-from qgp.inversion import build_inversion, flag_probability, statevector_array
-from qgp.problem import problem_from_config
+from qgp.readout.filter_model import model_operator
+from qgp.readout.inference import infer
+from qgp.circuits.inversion import build_inversion, flag_probability, statevector_array
+from qgp.classical.problem import problem_from_config
 from qgp.settings import ReadoutSettings
-from qgp.simulate import run_statevector
-from qgp.system import eigenvalue_bounds
+from qgp.readout.simulate import run_statevector
+from qgp.classical.system import eigenvalue_bounds
 
 CIRCUITS = {
     "exact": 'evolution = "exact"',
@@ -286,7 +286,7 @@ def test_reading_the_sqrt_file_gives_the_quadratic_form(tmp_path):
     # ŷᵀA⁻¹ŷ from P(flag = 1)/C′ (the sentence in resources.json). Issue 10 named the old 2%
     # tolerance here weak (0.17% measured). The exact oracle's P is known in closed form: the
     # Fejér kernel of phase estimation times g² = C′/λ̃ per clock value (Nielsen & Chuang §5.2.1;
-    # qgp.filter_model), so the file must give that P to 1e-9, and its error against a Cholesky
+    # qgp.readout.filter_model), so the file must give that P to 1e-9, and its error against a Cholesky
     # solve (common practice) is then exactly the model's phase-estimation error, no more.
     cfg = load_config(_write_config(tmp_path, 4, CIRCUITS["exact"], clock_qubits=8))
     paths = export_config(cfg, tmp_path / "out")
@@ -475,7 +475,7 @@ def test_export_refuses_too_many_oracle_calls_before_building(monkeypatch, tmp_p
     def _no_build(*args, **kwargs):
         raise AssertionError("a circuit was built before the size check")
 
-    monkeypatch.setattr("qgp.export.gate_inversion", _no_build)
+    monkeypatch.setattr("qgp.circuits.qasm.gate_inversion", _no_build)
     with pytest.raises(QgpError, match="too large") as err:
         export_config(cfg, tmp_path / "out")
     assert "131070" in str(err.value)
@@ -490,7 +490,7 @@ def test_export_refuses_a_large_problem_before_building_the_kernel(monkeypatch, 
     def _no_problem(*args, **kwargs):
         raise AssertionError("the kernel matrix was built before the size check")
 
-    monkeypatch.setattr("qgp.problem.problem_from_config", _no_problem)
+    monkeypatch.setattr("qgp.classical.problem.problem_from_config", _no_problem)
     with pytest.raises(QgpError, match="300 training points") as err:
         export_config(cfg, tmp_path / "out")
     assert "11-qubit" in str(err.value), str(err.value)

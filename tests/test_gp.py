@@ -9,7 +9,7 @@ import pytest
 import scipy.stats
 
 from qgp.errors import QgpError
-from qgp.gp import (
+from qgp.classical.gp import (
     SPARSE_MIN_SIZE,
     ExactGP,
     FitResult,
@@ -20,7 +20,7 @@ from qgp.gp import (
     nlpd,
     rmse,
 )
-from qgp.kernels import RBF, Matern32, Matern52, Tapered, Wendland
+from qgp.classical.kernels import RBF, Matern32, Matern52, Tapered, Wendland
 
 
 def _worst_relative(ours, ref) -> float:

@@ -11,10 +11,10 @@ from scipy.stats import binomtest
 from qgp.config import load_config
 from qgp.demo import demo_config_path
 from qgp.errors import QgpError
-from qgp.estimators import sample_hadamard, sample_variance
-from qgp.inference import infer, shot_estimates
-from qgp.kernels import RBF, Kernel
-from qgp.problem import build_problem, problem_from_config
+from qgp.readout.estimators import sample_hadamard, sample_variance
+from qgp.readout.inference import infer, shot_estimates
+from qgp.classical.kernels import RBF, Kernel
+from qgp.classical.problem import build_problem, problem_from_config
 from qgp.settings import CircuitSettings, ReadoutSettings
 
 EXACT = ReadoutSettings(shots=0)
@@ -145,7 +145,7 @@ def test_strategies_agree_on_demo():
 @pytest.mark.parametrize("evolution", ["exact", "walk"])
 def test_both_estimators_see_the_same_inverse(evolution):
     # With C′ and C the same smallest admitted λ̃, M/C′ = B/C: both circuits apply the same Ã⁻¹
-    # (qgp.filter_model: h(λ)/C′ = f(λ)/C for every λ).
+    # (qgp.readout.filter_model: h(λ)/C′ = f(λ)/C for every λ).
     p = _random_problem(seed=8)
     r = infer(p, CircuitSettings(clock_qubits=5, evolution=evolution), EXACT, progress=None)
     ops = r.operators

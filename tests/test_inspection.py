@@ -2,7 +2,7 @@
 register, the memory guard before the LCU's Pauli decomposition, and the clock-register check.
 
 Sources beside each check. The memory model throughout: a statevector of q qubits is 16·2^q bytes
-(complex128 amplitudes, common practice; qgp.simulate.statevector_bytes).
+(complex128 amplitudes, common practice; qgp.readout.simulate.statevector_bytes).
 """
 
 from __future__ import annotations
@@ -17,11 +17,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-import qgp.encoding as encoding
-from qgp.cli import main
+import qgp.circuits.encoding as encoding
+from qgp.tools.cli import main
 from qgp.config import load_config
 from qgp.errors import QgpError
-from qgp.estimators import (
+from qgp.readout.estimators import (
     ONE_RUN,
     SPLIT_RUN,
     _reference_with_snapshot,
@@ -32,14 +32,14 @@ from qgp.estimators import (
     reference_circuit,
     variance_circuit,
 )
-from qgp.inference import _cached_pair, _qpe_body, _unit_inputs, clear_caches, infer, planned_qubits
-from qgp.inspection import inspect_problem, lcu_block_qubits, simulation_plan
-from qgp.inversion import build_inversion
-from qgp.kernels import RBF
-from qgp.problem import build_problem
+from qgp.readout.inference import _cached_pair, _qpe_body, _unit_inputs, clear_caches, infer, planned_qubits
+from qgp.reports.inspection import inspect_problem, lcu_block_qubits, simulation_plan
+from qgp.circuits.inversion import build_inversion
+from qgp.classical.kernels import RBF
+from qgp.classical.problem import build_problem
 from qgp.settings import CircuitSettings, ReadoutSettings
-from qgp.simulate import run_saved_statevectors, run_statevectors, statevector_bytes
-from qgp.system import eigenvalue_bounds
+from qgp.readout.simulate import run_saved_statevectors, run_statevectors, statevector_bytes
+from qgp.classical.system import eigenvalue_bounds
 
 TOL = 1e-10
 
@@ -237,16 +237,16 @@ def test_lcu_guard_refuses_before_decomposing(monkeypatch):
 
 def test_decomposition_refuses_itself_when_memory_is_short(monkeypatch):
     # The last line of defence inside pauli_decomposition: against the memory the process has left.
-    import qgp.simulate
+    import qgp.readout.simulate
 
-    monkeypatch.setattr(qgp.simulate, "available_memory_bytes", lambda: 1000)
+    monkeypatch.setattr(qgp.readout.simulate, "available_memory_bytes", lambda: 1000)
     with pytest.raises(QgpError, match='use \\[circuit\\] encoding = "dilation"'):
         encoding.pauli_decomposition(np.eye(32))
 
 
 @pytest.mark.parametrize("kind", ["rbf", "dense", "banded", "diagonal"])
 def test_pauli_term_bounds_hold(kind):
-    # Bounds from the entries alone (qgp.encoding.pauli_term_bounds: ℓ₁ and Parseval per X-mask)
+    # Bounds from the entries alone (qgp.circuits.encoding.pauli_term_bounds: ℓ₁ and Parseval per X-mask)
     # bracket the count the decomposition finds.
     rng = np.random.default_rng(7)
     n = 32
@@ -267,7 +267,7 @@ def test_pauli_term_bounds_hold(kind):
 
 def test_decomposition_memory_formula_matches_a_measurement():
     # Measured with tracemalloc (numpy reports its allocations to it): the formula of
-    # qgp.encoding.pauli_decomposition_bytes is within 20% above the measured peak at m = 8.
+    # qgp.circuits.encoding.pauli_decomposition_bytes is within 20% above the measured peak at m = 8.
     rng = np.random.default_rng(0)
     x = rng.normal(size=(256, 256))
     a = x + x.T
@@ -290,7 +290,7 @@ def test_inspect_cli_shows_the_plan(capsys):
 
 
 def test_one_clock_qubit_needs_an_evolution_time(tmp_path: Path):
-    # run refuses c = 1 without an evolution time (qgp.phase_estimation.derived_evolution_time:
+    # run refuses c = 1 without an evolution time (qgp.circuits.phase_estimation.derived_evolution_time:
     # t = 2π(1 − 2^(1−c))/λ_max is 0); the config and inspect now say so first, in one line.
     (tmp_path / "train.csv").write_text("x,y\n0.0,1.0\n1.0,2.0\n2.5,0.5\n")
     base = '[data]\ntrain = "train.csv"\ntarget = "y"\n[noise]\nvariance = 0.1\n[circuit]\nclock_qubits = 1\n'
@@ -317,7 +317,7 @@ def test_available_memory_respects_the_address_space_limit():
     # `ulimit -v` (RLIMIT_AS) is invisible in /proc/meminfo; the cap must not exceed what is left.
     code = (
         "import resource\n"
-        "from qgp.simulate import available_memory_bytes, _status_bytes\n"
+        "from qgp.readout.simulate import available_memory_bytes, _status_bytes\n"
         "size = _status_bytes('VmSize:')\n"
         "resource.setrlimit(resource.RLIMIT_AS, (size + 2**30, resource.RLIM_INFINITY))\n"
         "print(available_memory_bytes(), 2**30 + size - _status_bytes('VmSize:'))\n"

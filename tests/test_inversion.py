@@ -1,4 +1,4 @@
-"""Phase-estimation inversion circuits end to end (qgp.inversion)."""
+"""Phase-estimation inversion circuits end to end (qgp.circuits.inversion)."""
 
 from __future__ import annotations
 
@@ -9,7 +9,7 @@ from qiskit.quantum_info import Operator, SparsePauliOp, Statevector
 from qiskit_aer import AerSimulator
 
 from qgp.errors import QgpError
-from qgp.inversion import (
+from qgp.circuits.inversion import (
     build_inversion,
     eigenvalue_filter,
     flag_probability,

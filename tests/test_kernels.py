@@ -13,7 +13,7 @@ from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
 from qgp.errors import QgpError
-from qgp.kernels import (
+from qgp.classical.kernels import (
     RBF,
     Kernel,
     Matern32,

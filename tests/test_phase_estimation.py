@@ -1,4 +1,4 @@
-"""Phase estimation and its three oracles (qgp.phase_estimation)."""
+"""Phase estimation and its three oracles (qgp.circuits.phase_estimation)."""
 
 from __future__ import annotations
 
@@ -9,9 +9,9 @@ from qiskit import QuantumCircuit, transpile
 from qiskit.quantum_info import Operator, Statevector
 from qiskit_aer import AerSimulator
 
-from qgp.encoding import block_encoding, dilation_block_encoding, pauli_decomposition
+from qgp.circuits.encoding import block_encoding, dilation_block_encoding, pauli_decomposition
 from qgp.errors import QgpError
-from qgp.phase_estimation import (
+from qgp.circuits.phase_estimation import (
     controlled_trotter_step,
     controlled_walk,
     derived_evolution_time,

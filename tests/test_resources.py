@@ -1,4 +1,4 @@
-"""Resource accounting of the inversion circuits (qgp.resources)."""
+"""Resource accounting of the inversion circuits (qgp.circuits.resources)."""
 
 from __future__ import annotations
 
@@ -12,8 +12,8 @@ from qiskit import transpile
 from qiskit.quantum_info import SparsePauliOp
 
 from qgp.errors import QgpError
-from qgp.inversion import build_inversion
-from qgp.resources import (
+from qgp.circuits.inversion import build_inversion
+from qgp.circuits.resources import (
     BASES,
     MAX_ORACLE_CALLS,
     OPTIMIZATION_LEVEL,
@@ -50,7 +50,7 @@ ORACLES = {
 
 @pytest.mark.parametrize("oracle", list(ORACLES))
 def test_qubit_totals_are_system_clock_flag_block(oracle):
-    # Register layout of issue 3 / qgp.inversion: system (m) | clock (c) | flag (1) | block (b);
+    # Register layout of issue 3 / qgp.circuits.inversion: system (m) | clock (c) | flag (1) | block (b);
     # b = 0 without a block encoding, 1 for the dilation, ⌈log2 T⌉ for the LCU over T = 4 Pauli
     # terms of the Cao matrix (the paper's Pauli form has 4 terms).
     s = ORACLES[oracle]
@@ -137,7 +137,7 @@ def test_lcu_alpha_is_the_sum_of_absolute_pauli_coefficients():
 
 
 def test_dilation_alpha_is_the_row_sum_bound():
-    # Gershgorin: max_i Σ_j |A_ij| ≥ ‖A‖ (the dilation's default α, qgp.encoding).
+    # Gershgorin: max_i Σ_j |A_ij| ≥ ‖A‖ (the dilation's default α, qgp.circuits.encoding).
     res = inversion_resources(SPD, ORACLES["walk-dilation"], "inverse", SPD_BOUNDS, gate_level=False)
     assert res.alpha == pytest.approx(np.max(np.sum(np.abs(SPD), axis=1)), rel=1e-14)
     assert res.alpha >= np.linalg.eigvalsh(SPD)[-1]
@@ -198,8 +198,8 @@ def test_inference_resources_for_the_demo():
     # The demo (walk + dilation, c = 8): counts of the gate form beside a simulation-form run.
     from qgp.config import load_config
     from qgp.demo import demo_config_path
-    from qgp.problem import problem_from_config
-    from qgp.system import eigenvalue_bounds
+    from qgp.classical.problem import problem_from_config
+    from qgp.classical.system import eigenvalue_bounds
 
     cfg = load_config(demo_config_path())
     problem = problem_from_config(cfg)

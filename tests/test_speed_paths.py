@@ -18,27 +18,27 @@ from qiskit import QuantumCircuit, QuantumRegister
 from qiskit.circuit.library import UCRYGate
 from qiskit.quantum_info import Operator, Statevector
 
-import qgp.phase_estimation as pe
-from qgp.encoding import (
+import qgp.circuits.phase_estimation as pe
+from qgp.circuits.encoding import (
     MultiplexerGate,
     amplitude_encoding,
     amplitude_encoding_matrix,
     block_encoding,
 )
-from qgp.estimators import (
+from qgp.readout.estimators import (
     PROBE,
     operators_from_reference_run,
     per_point_probabilities,
     reference_circuit,
     variance_circuit,
 )
-from qgp.filter_model import model_operator
-from qgp.inference import SIMULATED_FORM, _exact_model, _unit_inputs, clear_caches, infer
-from qgp.inversion import FLAG, build_inversion, flag_rotation_circuit, rotation_angles, statevector_array
-from qgp.kernels import RBF
-from qgp.problem import build_problem
+from qgp.readout.filter_model import model_operator
+from qgp.readout.inference import SIMULATED_FORM, _exact_model, _unit_inputs, clear_caches, infer
+from qgp.circuits.inversion import FLAG, build_inversion, flag_rotation_circuit, rotation_angles, statevector_array
+from qgp.classical.kernels import RBF
+from qgp.classical.problem import build_problem
 from qgp.settings import CircuitSettings, ReadoutSettings
-from qgp.simulate import is_native, run_statevector
+from qgp.readout.simulate import is_native, run_statevector
 
 TOL = 1e-10
 
@@ -140,7 +140,7 @@ def test_native_lcu_walk_pieces_are_the_gate_level_walk(monkeypatch):
 def test_native_lcu_walk_on_aer_applies_the_walk_matrix(monkeypatch):
     # 8 × 8: six block qubits, a 3-level split of PREPARE. qiskit's Operator of the gate-level
     # controlled W takes minutes here, so the reference is diag(I, W) with W = R·U assembled from
-    # the Pauli terms and PREPARE's matrix (qgp.encoding), applied to random states on Aer.
+    # the Pauli terms and PREPARE's matrix (qgp.circuits.encoding), applied to random states on Aer.
     monkeypatch.setattr(pe, "_MAX_FUSED_QUBITS", 2)
     a = _spd(8, 8)
     be = block_encoding(a, "lcu")
@@ -214,7 +214,7 @@ def test_amortised_operators_match_gate_level_circuits(oracle):
 
 @pytest.mark.parametrize("oracle", ORACLES)
 def test_split_reference_register_matches_gate_level_circuits(oracle):
-    # A reference register split into runs of 2^r′ columns (qgp.estimators._split_reference_operators)
+    # A reference register split into runs of 2^r′ columns (qgp.readout.estimators._split_reference_operators)
     # is the same linear map applied a block of basis columns at a time, and M = E†E is read from the
     # uncomputed circuit P₀U†(Σ g_k²Π_k)UP₀: both equal qiskit's gate-level operators to round-off.
     a = _spd(4, 13)
@@ -235,7 +235,7 @@ def test_circuits_built_separately_do_not_share_a_prefix():
     s = CircuitSettings(clock_qubits=3, evolution="exact")
     inv = build_inversion(a, s, "inverse", _bounds(a), form="simulation")
     sq = build_inversion(a, s, "inverse_sqrt", _bounds(a), form="simulation")  # its own oracle
-    from qgp.estimators import _shares_prefix
+    from qgp.readout.estimators import _shares_prefix
 
     assert not _shares_prefix(inv, sq)
     assert _shares_prefix(inv, build_inversion(a, s, "inverse_sqrt", _bounds(a), form="simulation", oracle=inv.oracle))
@@ -342,7 +342,7 @@ def test_exact_oracle_model_needs_no_circuit(settings, rotation):
 
 @pytest.mark.slow
 def test_bench_quick_json_runs(capsys):
-    from qgp.cli import main
+    from qgp.tools.cli import main
 
     assert main(["bench", "--quick", "--json"]) == 0
     doc = json.loads(capsys.readouterr().out)

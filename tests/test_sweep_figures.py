@@ -2,7 +2,7 @@
 
 Four tiny real sweeps (c = 3–4, n ≤ 8, 17 points in all) run through the sweep engine into
 result stores; every figure is drawn from them, and each CSV row is checked against the store,
-read back independently of qgp.sweep_figures.
+read back independently of qgp.sweeps.figures.
 """
 
 from __future__ import annotations
@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 
 import qgp.demo
-from qgp.sweep_figures import (
+from qgp.sweeps.figures import (
     CSV_COLUMNS,
     FIGURES,
     config_from_document,
@@ -62,7 +62,7 @@ _SEED_KEYS = {"readout.seed"}
 @pytest.fixture(scope="module")
 def drawn(tmp_path_factory):
     """{store name: (store path, output dir, outcomes)} for the four tiny sweeps."""
-    from qgp.sweeps import parse_sweep, run_sweep, store_status
+    from qgp.sweeps.execute import parse_sweep, run_sweep, store_status
 
     root = tmp_path_factory.mktemp("sweep_figures")
     out = {}
@@ -78,7 +78,7 @@ def drawn(tmp_path_factory):
     return out
 
 
-# -- reading the store without qgp.sweep_figures -------------------------------------------------
+# -- reading the store without qgp.sweeps.figures -------------------------------------------------
 
 
 def _stored(store: Path) -> dict[int, dict]:
@@ -233,14 +233,14 @@ def test_fig7_model_rows_match_scaling_model(drawn):
 
 @pytest.mark.parametrize("evolution,encoding", [("exact", "dilation"), ("walk", "dilation"), ("walk", "lcu")])
 def test_filter_model_reproduces_the_simulated_circuits(drawn, evolution, encoding):
-    """The closed-form model behind fig. 7 equals the stored exact-probability runs (qgp.filter_model is exact here)."""
-    from qgp.problem import problem_from_config
+    """The closed-form model behind fig. 7 equals the stored exact-probability runs (qgp.readout.filter_model is exact here)."""
+    from qgp.classical.problem import problem_from_config
 
     store, _, _ = drawn["oracles"] if encoding == "dilation" else drawn["sizes"]
     cases = [p for p in _stored(store).values() if p["summary"]["evolution"] == evolution]
     if encoding == "lcu":  # no stored LCU run (too slow for a fast test): run one c = 3, n = 4 point here
-        from qgp.inference import infer
-        from qgp.report import config_document
+        from qgp.readout.inference import infer
+        from qgp.reports.run import config_document
 
         cfg = config_from_document(cases[0]["config"])
         cfg = replace(cfg, data=replace(cfg.data, n_train=4), circuit=replace(cfg.circuit, clock_qubits=3, encoding="lcu"))
@@ -257,10 +257,10 @@ def test_filter_model_reproduces_the_simulated_circuits(drawn, evolution, encodi
 @pytest.mark.parametrize("evolution,encoding", [("exact", "dilation"), ("walk", "dilation"), ("walk", "lcu")])
 @pytest.mark.parametrize("clock", [3, 5])
 def test_model_inversion_constants_match_build_inversion(evolution, encoding, clock):
-    from qgp.inversion import build_inversion
+    from qgp.circuits.inversion import build_inversion
     from qgp.settings import CircuitSettings
-    from qgp.sweep_figures import _model_inversion, _walk_alpha
-    from qgp.system import eigenvalue_bounds
+    from qgp.sweeps.figures import _model_inversion, _walk_alpha
+    from qgp.classical.system import eigenvalue_bounds
 
     rng = np.random.default_rng(5)
     X = rng.normal(size=(4, 4))

@@ -30,11 +30,11 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import qgp
-from qgp.cli import main
+from qgp.tools.cli import main
 from qgp.demo import demo_config_path
 from qgp.errors import QgpError
-from qgp.store import APPLICATION_ID, SCHEMA_VERSION, bind_store, open_store
-from qgp.sweeps import load_sweep, parse_sweep, run_sweep, valid_keys
+from qgp.sweeps.store import APPLICATION_ID, SCHEMA_VERSION, bind_store, open_store
+from qgp.sweeps.execute import load_sweep, parse_sweep, run_sweep, valid_keys
 
 REPO = Path(qgp.__file__).resolve().parents[1]
 
@@ -404,22 +404,22 @@ def test_a_failing_point_is_recorded_the_sweep_goes_on_and_retry_reruns_it(tmp_p
     # --retry-failed turns it into a done point once the cause is gone.
     path2 = _project(tmp_path, BASE + '[axes]\n"circuit.clock_qubits" = [3, 4]\n', "two.toml")
     store2 = tmp_path / "r2.sqlite"
-    import qgp.inference
+    import qgp.readout.inference
 
-    real_infer = qgp.inference.infer
+    real_infer = qgp.readout.inference.infer
 
     def flaky(problem, circuit, readout, **kw):
         if circuit.clock_qubits == 4:
             raise RuntimeError("injected failure")
         return real_infer(problem, circuit, readout, **kw)
 
-    monkeypatch.setattr(qgp.inference, "infer", flaky)
+    monkeypatch.setattr(qgp.readout.inference, "infer", flaky)
     assert main(["sweep", str(path2), "--store", str(store2), "--workers", "1", "--quiet"]) == 1
     with open_store(store2) as s:
         (bad,) = s.points("failed")
         assert bad.grid_index == 1 and bad.error == "RuntimeError: injected failure"
         assert "Traceback" in s.point_rows()[1]["traceback"]
-    monkeypatch.setattr(qgp.inference, "infer", real_infer)
+    monkeypatch.setattr(qgp.readout.inference, "infer", real_infer)
     assert main(["sweep", str(path2), "--store", str(store2), "--workers", "1", "--quiet", "--retry-failed"]) == 0
     with open_store(store2) as s:
         assert [p.grid_index for p in s.points("done")] == [0, 1] and s.points("failed") == []
@@ -448,7 +448,7 @@ def test_one_and_two_workers_store_the_same_numbers(four_points):
 
 
 def test_two_workers_share_the_cores_without_oversubscribing(four_points):
-    from qgp.simulate import cpu_count
+    from qgp.readout.simulate import cpu_count
 
     r2 = four_points[4]
     assert r2.workers * r2.threads_per_worker <= max(cpu_count(), r2.workers)
@@ -522,7 +522,7 @@ def test_cli_usage_errors_are_one_line(tmp_path, capsys):
 def _sweep_cli(path: Path, store: Path, *extra: str) -> subprocess.Popen:
     env = {**os.environ, "PYTHONPATH": os.pathsep.join(filter(None, [str(REPO), os.environ.get("PYTHONPATH")]))}
     return subprocess.Popen(
-        [sys.executable, "-m", "qgp.cli", "sweep", str(path), "--store", str(store), "--quiet", *extra],
+        [sys.executable, "-m", "qgp.tools.cli", "sweep", str(path), "--store", str(store), "--quiet", *extra],
         cwd=REPO,
         env=env,
         stdout=subprocess.PIPE,
@@ -629,9 +629,9 @@ def test_results_csv_never_replaces_the_store_or_a_file_without_force(four_point
 
     # Written atomically: an export that fails half-way leaves the old file whole and no temporary
     # file (temporary name in the same folder, then rename(2), which is atomic: POSIX).
-    import qgp.sweeps
+    import qgp.sweeps.execute
 
-    real_cell, calls = qgp.sweeps._cell, []
+    real_cell, calls = qgp.sweeps.execute._cell, []
 
     def failing_cell(value):
         calls.append(value)
@@ -639,10 +639,10 @@ def test_results_csv_never_replaces_the_store_or_a_file_without_force(four_point
             raise RuntimeError("disk full (injected)")
         return real_cell(value)
 
-    monkeypatch.setattr(qgp.sweeps, "_cell", failing_cell)
+    monkeypatch.setattr(qgp.sweeps.execute, "_cell", failing_cell)
     with pytest.raises(RuntimeError, match="injected"):
-        qgp.sweeps.export_csv(one, mine, force=True)
-    monkeypatch.setattr(qgp.sweeps, "_cell", real_cell)
+        qgp.sweeps.execute.export_csv(one, mine, force=True)
+    monkeypatch.setattr(qgp.sweeps.execute, "_cell", real_cell)
     assert len(calls) == 30 and mine.read_text() == "a user's own table\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["mine.csv"]
     assert main(["results", str(one), "--csv", str(mine), "--force"]) == 0
@@ -652,7 +652,7 @@ def test_results_csv_never_replaces_the_store_or_a_file_without_force(four_point
 
 def test_a_second_sweep_on_a_store_in_use_refuses_and_runs_nothing(tmp_path):
     # Reproduced: two `qgp sweep` processes on one store both ran every point ("24 done" twice).
-    from qgp.store import lock_path, lock_store
+    from qgp.sweeps.store import lock_path, lock_store
 
     path = _project(tmp_path, SLOW)
     store = tmp_path / "r.sqlite"
@@ -687,7 +687,7 @@ def test_a_second_sweep_on_a_store_in_use_refuses_and_runs_nothing(tmp_path):
 
 def test_a_store_held_by_this_process_is_refused_by_a_second_run(tmp_path):
     # The same rule inside one process (two threads or calls): flock locks are per open file.
-    from qgp.store import lock_store
+    from qgp.sweeps.store import lock_store
 
     sweep = load_sweep(_project(tmp_path, FOUR))
     store = tmp_path / "r.sqlite"
@@ -705,7 +705,7 @@ def _targets(store: Path) -> dict[int, list[float]]:
 def test_every_point_uses_the_data_read_at_the_start_and_a_changed_file_stops_a_resume(tmp_path, monkeypatch, capsys):
     # Reproduced: a data file edited while a sweep ran was mixed in silently (points 0-6 saw one
     # file, 7-11 another). Here the test file's targets change while point 0 runs.
-    import qgp.inference
+    import qgp.readout.inference
 
     path = _project(tmp_path, BASE + '[axes]\n"readout.seed" = [1, 2, 3, 4]\n')
     test_csv = (tmp_path / "data" / "ice_test.csv").resolve()
@@ -715,7 +715,7 @@ def test_every_point_uses_the_data_read_at_the_start_and_a_changed_file_stops_a_
     edited = "\n".join([",".join(rows[0])] + [f"{r[0]},{float(r[1]) + 100.0}" for r in rows[1:]]) + "\n"
     sha_original, sha_edited = _sha(test_csv), hashlib.sha256(edited.encode()).hexdigest()
     store = tmp_path / "r.sqlite"
-    real_infer, calls = qgp.inference.infer, []
+    real_infer, calls = qgp.readout.inference.infer, []
 
     def hooked(problem, circuit, readout, **kw):
         calls.append(1)
@@ -725,7 +725,7 @@ def test_every_point_uses_the_data_read_at_the_start_and_a_changed_file_stops_a_
             raise KeyboardInterrupt
         return real_infer(problem, circuit, readout, **kw)
 
-    monkeypatch.setattr(qgp.inference, "infer", hooked)
+    monkeypatch.setattr(qgp.readout.inference, "infer", hooked)
     with pytest.raises(KeyboardInterrupt):
         run_sweep(load_sweep(path), store, workers=1, progress=False)
     assert _targets(store) == {0: truth, 1: truth}  # point 1 read its data after the edit
@@ -821,12 +821,12 @@ def test_zero_dask_workers_are_reported_while_waiting(tmp_path, monkeypatch, cap
     distributed = pytest.importorskip("dask.distributed", reason="dask[distributed] is not installed")
     import logging
 
-    import qgp.sweeps
+    import qgp.sweeps.execute
 
     sweep = load_sweep(_project(tmp_path, BASE + '[axes]\n"readout.seed" = [1, 2]\n'))
-    monkeypatch.setattr(qgp.sweeps, "_DASK_WAIT_SECONDS", 0.5)
+    monkeypatch.setattr(qgp.sweeps.execute, "_DASK_WAIT_SECONDS", 0.5)
     seen: list[str] = []
-    real_say = qgp.sweeps._Progress.say
+    real_say = qgp.sweeps.execute._Progress.say
     with distributed.LocalCluster(n_workers=0, dashboard_address=None, silence_logs=logging.ERROR) as cluster:
 
         def say(self, msg, *, always=False):
@@ -835,7 +835,7 @@ def test_zero_dask_workers_are_reported_while_waiting(tmp_path, monkeypatch, cap
                 seen.append(msg)
                 cluster.scale(1)  # a worker arrives once the wait has been reported
 
-        monkeypatch.setattr(qgp.sweeps._Progress, "say", say)
+        monkeypatch.setattr(qgp.sweeps.execute._Progress, "say", say)
         # Without the message the run would wait forever: a worker arrives after 20 s regardless,
         # so a silent wait fails the assertions below instead of hanging the test.
         fallback = threading.Timer(20.0, lambda: seen or cluster.scale(1))

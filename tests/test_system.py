@@ -6,10 +6,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from qgp.errors import QgpError
-from qgp.gp import condition
-from qgp.kernels import RBF, Matern32, Tapered
-from qgp.levers import noise_for_condition, taper_cost, taper_radius_for_sparsity
-from qgp.system import diagnose, eigenvalue_bounds, pad_matrix, pad_vector, padded_size, regularise, sparsity
+from qgp.classical.gp import condition
+from qgp.classical.kernels import RBF, Matern32, Tapered
+from qgp.classical.levers import noise_for_condition, taper_cost, taper_radius_for_sparsity
+from qgp.classical.system import diagnose, eigenvalue_bounds, pad_matrix, pad_vector, padded_size, regularise, sparsity
 
 
 def _points(seed, n, d=1, scale=5.0):

@@ -14,7 +14,7 @@ from pathlib import Path
 
 import pytest
 
-from qgp.cli import main
+from qgp.tools.cli import main
 from qgp.errors import QgpError
 from qgp.files import atomic_open, atomic_write_text, check_output_file, check_outputs
 

@@ -12,13 +12,13 @@ from typing import Literal
 
 import numpy as np
 
-from .config import Dataset, load_dataset
-from .errors import QgpError
-from .gp import ExactGP, condition, fit_ml2
-from .kernels import Kernel, make_kernel
-from .levers import noise_for_condition
-from .settings import MAX_ABS_VALUE, Config
-from .system import (
+from qgp.config import Dataset, load_dataset
+from qgp.errors import QgpError
+from qgp.classical.gp import ExactGP, condition, fit_ml2
+from qgp.classical.kernels import Kernel, make_kernel
+from qgp.classical.levers import noise_for_condition
+from qgp.settings import MAX_ABS_VALUE, Config
+from qgp.classical.system import (
     EXACT_EIGEN_LIMIT,
     SystemDiagnostics,
     diagnose,
@@ -87,7 +87,7 @@ class Problem:
 
     @cached_property
     def A_padded(self) -> np.ndarray:
-        """diag(A, d·I) of size 2^m (see qgp.system for why every GP answer is unchanged)."""
+        """diag(A, d·I) of size 2^m (see qgp.classical.system for why every GP answer is unchanged)."""
         return pad_matrix(self.A, self.padding_diagonal)
 
     @cached_property

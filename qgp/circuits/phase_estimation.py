@@ -45,7 +45,7 @@ from qiskit.circuit import Gate, QuantumCircuit, QuantumRegister
 from qiskit.circuit.library import QFTGate, UnitaryGate, ZGate
 from qiskit.quantum_info import SparsePauliOp
 
-from qgp.encoding import (
+from qgp.circuits.encoding import (
     BLOCK,
     SYSTEM,
     BlockEncoding,
@@ -358,7 +358,7 @@ def _lcu_walk_pieces(be: BlockEncoding) -> _WalkPieces:
     levels = []
     for inst in tree.data:
         op = inst.operation
-        if op.name not in ("ry", "ucry"):  # the tree is RY and uniformly controlled RY (qgp.encoding)
+        if op.name not in ("ry", "ucry"):  # the tree is RY and uniformly controlled RY (qgp.circuits.encoding)
             raise QgpError(f"unexpected gate {op.name!r} in the LCU's PREPARE")
         levels.append((tree.find_bit(inst.qubits[0]).index, np.array([float(t) for t in op.params])))
     levels.sort(key=lambda lv: -lv[0])  # level l targets qubit k − 1 − l
@@ -597,7 +597,7 @@ def phase_oracle(
 ) -> PhaseOracle:
     """The oracle ``settings.evolution`` asks for; t derived from λ_hi unless overridden.
 
-    For the walk, ``block_encoding`` (built by the caller, e.g. `qgp.encoding.block_encoding`)
+    For the walk, ``block_encoding`` (built by the caller, e.g. `qgp.circuits.encoding.block_encoding`)
     is required.
     """
     _check_form(form)

@@ -30,7 +30,7 @@ import scipy.sparse
 import scipy.sparse.linalg
 
 from qgp.errors import QgpError
-from qgp.kernels import Kernel, _as_inputs
+from qgp.classical.kernels import Kernel, _as_inputs
 
 __all__ = [
     "Prediction",

@@ -22,7 +22,7 @@ import numpy as np
 from qiskit import QuantumCircuit
 from qiskit.circuit import Gate
 
-from .errors import QgpError
+from qgp.errors import QgpError
 
 __all__ = [
     "available_memory_bytes",

@@ -2,7 +2,7 @@
 
 `simulation_plan` is the one place that says which simulations a run makes — per strategy, each
 run's qubits, memory and count, and whether it fits under the memory cap — from the register
-sizes alone. ``qgp inspect`` reports it and `qgp.inference.infer` refuses by it, before any work
+sizes alone. ``qgp inspect`` reports it and `qgp.readout.inference.infer` refuses by it, before any work
 that grows with n (the LCU encoding's Pauli decomposition included).
 """
 
@@ -13,10 +13,10 @@ import threading
 from collections import OrderedDict
 from dataclasses import dataclass
 
-from .errors import QgpError
-from .problem import Problem
-from .settings import CircuitSettings, ReadoutSettings
-from .simulate import default_memory_cap, require_memory, statevector_bytes
+from qgp.errors import QgpError
+from qgp.classical.problem import Problem
+from qgp.settings import CircuitSettings, ReadoutSettings
+from qgp.readout.simulate import default_memory_cap, require_memory, statevector_bytes
 
 __all__ = [
     "qubit_counts",
@@ -42,7 +42,7 @@ SIMULATION_CAVEAT = (
 STRATEGIES = ("amortised", "per-point")
 
 # What each per-point run is (the ``what`` of the plan and of `InferenceResult.summary`'s
-# ``simulation_runs``); the amortised runs' are in qgp.estimators.
+# ``simulation_runs``); the amortised runs' are in qgp.readout.estimators.
 PER_POINT_MEAN = "Hadamard test of the mean (inversion of ŷ against k̂, probe qubit): one circuit per test point"
 PER_POINT_VARIANCE = "variance circuit (inverse_sqrt on k̂, flag read): one circuit per test point"
 PER_POINT_HADAMARD = "Hadamard test of k̂ᵀÃ⁻¹k̂ (probe qubit): one circuit per test point"
@@ -56,7 +56,7 @@ def check_clock_qubits(settings: CircuitSettings) -> None:
     error budget's exact-oracle model needs t for every oracle, the walk included), so one clock
     qubit needs an explicit ``[circuit] evolution_time``."""
     if settings.clock_qubits < 2 and settings.evolution_time is None:
-        from .phase_estimation import derived_evolution_time
+        from qgp.circuits.phase_estimation import derived_evolution_time
 
         derived_evolution_time(1.0, settings.clock_qubits)  # raises its own one-line error
 
@@ -69,9 +69,9 @@ class BlockRegister:
     """The walk's block register: ``qubits`` (an upper bound when ``is_bound``).
 
     For the LCU encoding ``pauli_terms`` is the number of Pauli strings — exact, or an upper bound
-    (`qgp.encoding.pauli_term_bounds`) when the decomposition was not run, with
+    (`qgp.circuits.encoding.pauli_term_bounds`) when the decomposition was not run, with
     ``pauli_terms_lower`` beside it — ``decomposition_bytes`` the memory the decomposition needs
-    (`qgp.encoding.pauli_decomposition_bytes`) and ``decomposition_fits`` whether that is under
+    (`qgp.circuits.encoding.pauli_decomposition_bytes`) and ``decomposition_fits`` whether that is under
     the cap. None for the other encodings.
     """
 
@@ -95,7 +95,7 @@ class BlockRegister:
             "decomposition_bytes": self.decomposition_bytes,
             "decomposition_fits": self.decomposition_fits,
             "note": "decomposition_bytes = 66·4^m + T·max(132 + 3m, 16 + 10m) at T = pauli_terms (measured; "
-            "qgp.encoding); when pauli_terms_is_bound the decomposition was not run (it would not fit under the "
+            "qgp.circuits.encoding); when pauli_terms_is_bound the decomposition was not run (it would not fit under the "
             "memory cap, or the answer does not depend on it) and pauli_terms, block_qubits are upper bounds "
             "from the entries of A, pauli_terms_lower_bound a lower one",
         }
@@ -123,7 +123,7 @@ def _pauli_term_count(A) -> int:
     with _TERM_LOCK:
         if key in _TERM_COUNTS:
             return _TERM_COUNTS[key]
-    from .encoding import pauli_decomposition
+    from qgp.circuits.encoding import pauli_decomposition
 
     count = len(pauli_decomposition(a))
     with _TERM_LOCK:
@@ -137,13 +137,13 @@ def block_register(problem: Problem, settings: CircuitSettings, cap: int, *, dec
     """The block register the walk's encoding needs (none for the other oracles).
 
     LCU: the Pauli decomposition runs only when ``decompose`` and its memory fits under ``cap``;
-    otherwise the counts are the bounds of `qgp.encoding.pauli_term_bounds` (one pass over A).
+    otherwise the counts are the bounds of `qgp.circuits.encoding.pauli_term_bounds` (one pass over A).
     """
     if settings.evolution != "walk":
         return BlockRegister(0)
     if settings.encoding != "lcu":
         return BlockRegister(1)
-    from .encoding import pauli_decomposition_bytes, pauli_term_bounds
+    from qgp.circuits.encoding import pauli_decomposition_bytes, pauli_term_bounds
 
     m = problem.system_qubits
     lower, upper = pauli_term_bounds(problem.A_padded)
@@ -189,12 +189,12 @@ def plan_runs(
     """(amortised runs, reference qubits, per-point runs) for these registers: pure arithmetic.
 
     Amortised: one run with a reference register of m qubits, saving the state before the
-    rotation (two statevectors, `qgp.estimators.reference_run_bytes`) when that fits (reference
+    rotation (two statevectors, `qgp.readout.estimators.reference_run_bytes`) when that fits (reference
     qubits None); else the reference register split into 2^(m − r′) runs of 2^r′ columns, r′ the
     largest that fits with one statevector per run (reference qubits r′). Per-point: one circuit
     per test point and estimator, batched into jobs under the cap (one statevector per circuit).
     """
-    from .estimators import ONE_RUN, SPLIT_RUN, reference_run_bytes
+    from qgp.readout.estimators import ONE_RUN, SPLIT_RUN, reference_run_bytes
 
     m, c, b = int(system_qubits), int(clock_qubits), int(block_qubits)
     q = m + c + 1 + b
@@ -258,7 +258,7 @@ class SimulationPlan:
     def require(self) -> None:
         """Raise a one-line `QgpError` when the chosen strategy cannot run under the cap."""
         if self.block.decomposition_fits is False:
-            from .encoding import require_decomposition_memory
+            from qgp.circuits.encoding import require_decomposition_memory
 
             require_decomposition_memory(self.system_qubits, self.memory_cap_bytes, self.block.pauli_terms)
         failing = [r for r in self.runs() if not r.fits]

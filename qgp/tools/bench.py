@@ -98,10 +98,10 @@ def _stderr(msg: str) -> None:
 
 def _bench_problem(n_test: int):
     """The demo's 16 training points and kernel, κ = 20, ``n_test`` test inputs along the transect."""
-    from .config import load_config, load_dataset
-    from .demo import demo_config_path
-    from .kernels import make_kernel
-    from .problem import build_problem
+    from qgp.config import load_config, load_dataset
+    from qgp.demo import demo_config_path
+    from qgp.classical.kernels import make_kernel
+    from qgp.classical.problem import build_problem
 
     cfg = load_config(demo_config_path())
     ds = load_dataset(cfg.data)
@@ -117,7 +117,7 @@ def _bench_problem(n_test: int):
 
 
 def _exact_circuit(clock_qubits: int):
-    from .settings import CircuitSettings
+    from qgp.settings import CircuitSettings
 
     return CircuitSettings(clock_qubits=clock_qubits, evolution="exact")
 
@@ -130,12 +130,12 @@ def _naive_point(problem, circuit, j: int) -> tuple[float, float, float]:
     Hadamard test and the variance circuit from scratch, transpile them, run them in a job of their own."""
     from qiskit import transpile
 
-    from .estimators import _hadamard_outcomes, hadamard_test_circuit, variance_circuit
-    from .inference import SIMULATED_FORM, _unit_inputs
-    from .inversion import build_inversion, statevector_array
-    from .phase_estimation import phase_estimation_circuit, phase_oracle
-    from .simulate import simulator
-    from .system import eigenvalue_bounds
+    from qgp.readout.estimators import _hadamard_outcomes, hadamard_test_circuit, variance_circuit
+    from qgp.readout.inference import SIMULATED_FORM, _unit_inputs
+    from qgp.circuits.inversion import build_inversion, statevector_array
+    from qgp.circuits.phase_estimation import phase_estimation_circuit, phase_oracle
+    from qgp.readout.simulate import simulator
+    from qgp.classical.system import eigenvalue_bounds
 
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)
@@ -155,8 +155,8 @@ def _naive_point(problem, circuit, j: int) -> tuple[float, float, float]:
 
 
 def _timed_infer(problem, circuit, strategy: str):
-    from .inference import clear_caches, infer
-    from .settings import ReadoutSettings
+    from qgp.readout.inference import clear_caches, infer
+    from qgp.settings import ReadoutSettings
 
     clear_caches()  # cold: every circuit built and simulated again
     t0 = time.perf_counter()
@@ -171,8 +171,8 @@ def _amortised(problem, circuit, repeats: int):
 
 
 def _strategies(s: BenchSettings, problem, say: Progress) -> dict:
-    from .inference import infer
-    from .settings import ReadoutSettings
+    from qgp.readout.inference import infer
+    from qgp.settings import ReadoutSettings
 
     circuit = _exact_circuit(s.clock_qubits)
     say(f"warming up (imports, simulator) at {s.clock_qubits} clock qubits")
@@ -254,10 +254,10 @@ def _strategies(s: BenchSettings, problem, say: Progress) -> dict:
 
 
 def _classical(problem, repeats: int) -> dict:
-    """Median time of the exact GP from the same matrices (and of qgp.gp with kernel evaluation)."""
+    """Median time of the exact GP from the same matrices (and of qgp.classical.gp with kernel evaluation)."""
     import scipy.linalg
 
-    from .gp import condition
+    from qgp.classical.gp import condition
 
     A = np.asarray(problem.A)
     ks = np.asarray(problem.k_star)
@@ -318,10 +318,10 @@ def _copy_bandwidth(nbytes: int) -> float:
 
 def _run_case(case: dict) -> dict:
     """One scaling case, in this (child) process: build and simulate one inversion."""
-    from .inference import _unit_inputs
-    from .inversion import build_inversion
-    from .simulate import simulator
-    from .system import eigenvalue_bounds
+    from qgp.readout.inference import _unit_inputs
+    from qgp.circuits.inversion import build_inversion
+    from qgp.readout.simulate import simulator
+    from qgp.classical.system import eigenvalue_bounds
 
     problem = _bench_problem(2)
     circuit = _exact_circuit(int(case["clock_qubits"]))
@@ -380,7 +380,7 @@ def _child_env() -> dict:
 
 
 def _case_in_child(case: dict, timeout: float) -> dict:
-    cmd = [sys.executable, "-m", "qgp.bench", "--case", json.dumps(case)]
+    cmd = [sys.executable, "-m", "qgp.tools.bench", "--case", json.dumps(case)]
     try:
         done = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=_child_env())
     except subprocess.TimeoutExpired:
@@ -392,7 +392,7 @@ def _case_in_child(case: dict, timeout: float) -> dict:
 
 
 def _scaling(s: BenchSettings, say: Progress) -> dict:
-    from .simulate import default_memory_cap, statevector_bytes
+    from qgp.readout.simulate import default_memory_cap, statevector_bytes
 
     cap = default_memory_cap()
     guard_qubits = int(math.floor(math.log2(cap / 16)))
@@ -484,7 +484,7 @@ _VOLATILE = {"elapsed_seconds", "timings"}
 
 
 def _stored_numbers(path: Path) -> dict:
-    from .store import open_store
+    from qgp.sweeps.store import open_store
 
     with open_store(path) as store:
         return {
@@ -515,8 +515,8 @@ def _max_abs_difference(a, b) -> float:
 
 
 def _sweep(s: BenchSettings, say: Progress) -> dict:
-    from .demo import demo_config_path
-    from .sweeps import load_sweep, run_sweep
+    from qgp.demo import demo_config_path
+    from qgp.sweeps.execute import load_sweep, run_sweep
 
     demo = demo_config_path().parent
     kappas = ", ".join(f"{k:.1f}" for k in np.linspace(10.0, 40.0, s.sweep_points))
@@ -548,7 +548,7 @@ def _sweep(s: BenchSettings, say: Progress) -> dict:
         diff = _max_abs_difference(one, two)
     # What a fresh worker pays before its first point: a Python process importing qgp's pipeline.
     t0 = time.perf_counter()
-    subprocess.run([sys.executable, "-c", "import qgp.sweeps, qgp.inference"], check=True, env=_child_env())
+    subprocess.run([sys.executable, "-c", "import qgp.sweeps.execute, qgp.readout.inference"], check=True, env=_child_env())
     start_up = time.perf_counter() - t0
     return {
         "points": sweep.size,
@@ -563,7 +563,7 @@ def _sweep(s: BenchSettings, say: Progress) -> dict:
         "note": "1 worker runs inline with the simulator on all cores; 2 workers are spawned processes with 1 "
         f"thread each (their start-up is included: a fresh process importing qgp took {start_up:.1f} s here). Stored numbers may differ in "
         "the last bits: the exact GP's BLAS runs with 2 threads inline and 1 in a worker. These points simulate "
-        "< 20 qubits, where Aer runs one thread (qgp.simulate.PARALLEL_THRESHOLD_QUBITS), so the second "
+        "< 20 qubits, where Aer runs one thread (qgp.readout.simulate.PARALLEL_THRESHOLD_QUBITS), so the second "
         "worker has a core to itself; points that already use both cores cannot gain from a second worker",
     }
 
@@ -573,8 +573,8 @@ def _sweep(s: BenchSettings, say: Progress) -> dict:
 
 def run_bench(settings: BenchSettings = FULL, *, progress: Progress | None = _stderr) -> dict:
     """Measure every figure and return one JSON-ready dict (see the module docstring)."""
-    from . import __version__
-    from .simulate import PARALLEL_THRESHOLD_QUBITS, cpu_count
+    from qgp import __version__
+    from qgp.readout.simulate import PARALLEL_THRESHOLD_QUBITS, cpu_count
 
     say = progress or _quiet
     t_start = time.perf_counter()
@@ -620,7 +620,7 @@ def run_bench(settings: BenchSettings = FULL, *, progress: Progress | None = _st
             "quantum_breakdown": strategies["amortised_timings"],
             "note": "cholesky: factor A = K + σ²I, solve for α, one triangular solve for the variances, from the "
             "matrices the circuits also start from; the median of repeats, with BLAS as configured and with BLAS "
-            "on 1 thread (threadpoolctl, when installed), whichever is faster; qgp_gp: qgp.gp.condition + predict, "
+            "on 1 thread (threadpoolctl, when installed), whichever is faster; qgp_gp: qgp.classical.gp.condition + predict, "
             "kernel evaluation included. Quantum: cold amortised infer (circuits built, simulated, read out; "
             "it also evaluates the exact GP for its error columns)",
         },
@@ -709,9 +709,9 @@ def format_table(doc: dict) -> str:
 
 
 def _case_main(argv: list[str]) -> int:
-    """``python -m qgp.bench --case JSON``: one scaling case, its result as one JSON line."""
+    """``python -m qgp.tools.bench --case JSON``: one scaling case, its result as one JSON line."""
     if len(argv) != 2 or argv[0] != "--case":
-        print("usage: python -m qgp.bench --case JSON (used by qgp bench)", file=sys.stderr)
+        print("usage: python -m qgp.tools.bench --case JSON (used by qgp bench)", file=sys.stderr)
         return 2
     print(json.dumps(_run_case(json.loads(argv[1]))))
     return 0

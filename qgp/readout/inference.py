@@ -6,9 +6,9 @@ builds the ``inverse`` and ``inverse_sqrt`` circuits for the padded A (given onl
 eigenvalue bounds), simulates them (amortised: one reference-register run, or the reference
 register split into as many runs as the memory cap requires; per-point: one full circuit per test
 point), turns outcome probabilities — exact, or sampled with ``shots`` —
-into predictive means and latent variances (qgp.estimators), and sets them beside the exact GP
+into predictive means and latent variances (qgp.readout.estimators), and sets them beside the exact GP
 with an error budget that adds one imperfection at a time. Before any of it the memory guard
-checks every simulation the chosen strategy will make (`qgp.inspection.simulation_plan`, the plan
+checks every simulation the chosen strategy will make (`qgp.reports.inspection.simulation_plan`, the plan
 ``qgp inspect`` prints) and the result lists the runs made (``simulation_runs``).
 """
 
@@ -26,8 +26,8 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from qiskit import QuantumCircuit
 
-from .errors import QgpError
-from .estimators import (
+from qgp.errors import QgpError
+from qgp.readout.estimators import (
     CircuitOperators,
     hadamard_probabilities,
     operators_from_reference_run,
@@ -38,15 +38,15 @@ from .estimators import (
     sample_variance,
     variance_probabilities,
 )
-from .filter_model import model_operator
-from .gp import count_nonpositive, nlpd, rmse
-from .inspection import check_clock_qubits, simulation_plan
-from .inversion import InversionCircuit, build_inversion, postselected_system_amplitudes, rotation_constants
-from .phase_estimation import PhaseOracle, derived_evolution_time, phase_estimation_circuit, phase_oracle
-from .problem import Problem
-from .settings import CircuitSettings, ReadoutSettings
-from .simulate import default_memory_cap, run_statevectors
-from .system import eigenvalue_bounds
+from qgp.readout.filter_model import model_operator
+from qgp.classical.gp import count_nonpositive, nlpd, rmse
+from qgp.reports.inspection import check_clock_qubits, simulation_plan
+from qgp.circuits.inversion import InversionCircuit, build_inversion, postselected_system_amplitudes, rotation_constants
+from qgp.circuits.phase_estimation import PhaseOracle, derived_evolution_time, phase_estimation_circuit, phase_oracle
+from qgp.classical.problem import Problem
+from qgp.settings import CircuitSettings, ReadoutSettings
+from qgp.readout.simulate import default_memory_cap, run_statevectors
+from qgp.classical.system import eigenvalue_bounds
 
 __all__ = [
     "InferenceResult",
@@ -208,7 +208,7 @@ def _rel_rmse(err: np.ndarray, ref: np.ndarray) -> float:
 def planned_qubits(problem: Problem, circuit: CircuitSettings, readout: ReadoutSettings) -> int:
     """Largest simulated width of ``readout.strategy``: the inversion plus a reference register
     (amortised; split when the one run does not fit) or a probe (per-point). See
-    `qgp.inspection.simulation_plan`."""
+    `qgp.reports.inspection.simulation_plan`."""
     return simulation_plan(problem, circuit, readout).widest()
 
 
@@ -397,7 +397,7 @@ def _qpe_body(A, circuit: CircuitSettings, bounds, inv: InversionCircuit):
 def _with_preparation(inv: InversionCircuit, vector: np.ndarray) -> InversionCircuit:
     """``inv`` with the amplitude encoding of ``vector`` in front: what ``build_inversion(…,
     prepare=vector)`` builds, without building the rest again."""
-    from .encoding import amplitude_encoding
+    from qgp.circuits.encoding import amplitude_encoding
 
     qc = QuantumCircuit(*inv.circuit.qregs, name=inv.circuit.name)
     qc.compose(amplitude_encoding(vector, native=True), qubits=qc.qregs[0][:], inplace=True, copy=False)
@@ -451,7 +451,7 @@ def infer(
     timings: dict[str, float] = {}
     cap = readout.memory_cap_bytes if readout.memory_cap_bytes is not None else default_memory_cap()
     # The memory guard, before any work that grows with n (the LCU's Pauli decomposition included):
-    # every simulation the chosen strategy makes, from the register sizes (qgp.inspection).
+    # every simulation the chosen strategy makes, from the register sizes (qgp.reports.inspection).
     check_clock_qubits(circuit)
     plan = simulation_plan(problem, circuit, readout, cap=cap)
     plan.require()

@@ -40,7 +40,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any, Literal, Mapping, Sequence
 
-from .errors import QgpError
+from qgp.errors import QgpError
 
 __all__ = [
     "FORMAT",

@@ -47,11 +47,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterator, Literal, Mapping
 
-from .config import _SECTIONS as _CONFIG_KEYS  # the config's key list is the one source of valid keys
-from .config import parse_config
-from .errors import QgpError
-from .files import atomic_open, check_output_file, same_file
-from .store import (
+from qgp.config import _SECTIONS as _CONFIG_KEYS  # the config's key list is the one source of valid keys
+from qgp.config import parse_config
+from qgp.errors import QgpError
+from qgp.files import atomic_open, check_output_file, same_file
+from qgp.sweeps.store import (
     GridEntry,
     StoreStatus,
     bind_store,
@@ -194,7 +194,7 @@ def load_sweep(path: str | Path) -> Sweep:
 
 def parse_sweep(raw: Mapping[str, Any], *, base_dir: Path, source: Path | None = None, text: str | None = None) -> Sweep:
     """Validate a sweep given as nested dicts (as TOML parses it) and expand its grid."""
-    from .report import config_document
+    from qgp.reports.run import config_document
 
     where = str(source) if source else "sweep"
     base_dir = Path(base_dir).resolve()
@@ -371,8 +371,8 @@ def compute_point(task: Mapping[str, Any]) -> dict[str, Any]:
     None), data (optional {path: bytes}: the sweep's snapshot of its data files, used instead of
     the files on disk, which may have changed since the sweep started or be on another machine).
     """
-    from .report import summary_document, to_json, versions
-    from .simulate import set_threads
+    from qgp.reports.run import summary_document, to_json, versions
+    from qgp.readout.simulate import set_threads
 
     started = utc_now()
     t0 = time.perf_counter()
@@ -387,8 +387,8 @@ def compute_point(task: Mapping[str, Any]) -> dict[str, Any]:
         config = copy.deepcopy(dict(task["config"]))
         if task.get("data"):
             local = _materialise_data(config, task["data"])
-        from .inference import infer
-        from .problem import problem_from_config
+        from qgp.readout.inference import infer
+        from qgp.classical.problem import problem_from_config
 
         cfg = parse_config(config, base_dir=Path.cwd(), source=None)
         result = infer(problem_from_config(cfg), cfg.circuit, cfg.readout, progress=None)
@@ -503,7 +503,7 @@ def _dask_worker_threads() -> int | None:
         worker = get_worker()
     except (ImportError, ValueError):
         return None
-    from .simulate import cpu_count
+    from qgp.readout.simulate import cpu_count
 
     nthreads = getattr(getattr(worker, "state", None), "nthreads", None) or getattr(worker, "nthreads", 1) or 1
     return max(1, cpu_count() // int(nthreads))
@@ -520,7 +520,7 @@ def _init_worker(threads: int, ready=None, parent_pid: int | None = None) -> Non
     if parent_pid is not None:
         _exit_with_parent(parent_pid)
     signal.signal(signal.SIGINT, signal.SIG_IGN)
-    from .simulate import set_threads
+    from qgp.readout.simulate import set_threads
 
     set_threads(threads)
     try:
@@ -667,9 +667,9 @@ def run_sweep(
     the holder's pid. Every point uses the data snapshot taken when the sweep was loaded. A
     scheduler is reached before the store is created, so an unreachable one leaves no store.
     """
-    from . import __version__
-    from .report import versions
-    from .simulate import cpu_count
+    from qgp import __version__
+    from qgp.reports.run import versions
+    from qgp.readout.simulate import cpu_count
 
     if workers is not None and workers < 1:
         raise QgpError(f"--workers must be ≥ 1, got {workers}")
@@ -984,7 +984,7 @@ def _run_dask(
 
     from dask.distributed import LocalCluster, wait
 
-    from .simulate import cpu_count
+    from qgp.readout.simulate import cpu_count
 
     local = None
     own_client = None
@@ -1134,7 +1134,7 @@ def export_csv(store_path: str | Path, out: str | Path, *, test_points: bool = F
             header: list[str] = ["grid_index", *axis_keys, "test_index"]
             rows: list[dict[str, Any]] = []
             inputs: list[str] = []
-            from .store import TEST_POINT_COLUMNS
+            from qgp.sweeps.store import TEST_POINT_COLUMNS
 
             for p in points:
                 for tp in store.test_points(p.grid_index):

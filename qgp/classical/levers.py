@@ -13,9 +13,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.spatial import cKDTree
 
-from .errors import QgpError
-from .gp import condition, nlpd, rmse
-from .kernels import Kernel, Tapered
+from qgp.errors import QgpError
+from qgp.classical.gp import condition, nlpd, rmse
+from qgp.classical.kernels import Kernel, Tapered
 
 __all__ = [
     "noise_for_condition",
@@ -89,7 +89,7 @@ class LeverCost:
 
 
 def _cost(X, y, Xs, ys, kernel, noise, ref_kernel, ref_noise, setting, center) -> LeverCost:
-    from .system import diagnose, regularise
+    from qgp.classical.system import diagnose, regularise
 
     gp = condition(X, y, kernel, noise, center=center)
     ref = condition(X, y, ref_kernel, ref_noise, center=center)

@@ -13,9 +13,9 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
-from .files import atomic_open  # noqa: E402
-from .filter_model import filter_response  # noqa: E402
-from .inference import InferenceResult  # noqa: E402
+from qgp.files import atomic_open  # noqa: E402
+from qgp.readout.filter_model import filter_response  # noqa: E402
+from qgp.readout.inference import InferenceResult  # noqa: E402
 
 __all__ = ["PALETTE", "figure_style", "save_figure", "prediction_figure", "filter_figure", "run_figures"]
 
@@ -95,7 +95,7 @@ def filter_figure(result: InferenceResult, stem: Path) -> list[Path]:
     """The effective 1/λ̃ the circuit applies against the exact 1/λ, over A's eigenvalues.
 
     Points: the circuit's own operator B ≈ C·Ã⁻¹ in A's eigenbasis, diag(VᵀBV)/C (amortised runs);
-    curve: the closed-form filter model of qgp.filter_model for the same circuit.
+    curve: the closed-form filter model of qgp.readout.filter_model for the same circuit.
     """
     A = result.problem.A_padded
     lam, V = np.linalg.eigh(A)

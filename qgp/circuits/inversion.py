@@ -25,7 +25,7 @@ the walk, whose grid α·cos(2πk/2^c) is not uniform, it is the local spacing a
 (2π/2^c)·√(α² − λ_lo²).
 
 Two forms of the same operator: ``"gate"`` (uniformly controlled RY, gate-level oracles; what is
-counted and exported) and ``"simulation"`` (fused controlled powers — see qgp.phase_estimation —,
+counted and exported) and ``"simulation"`` (fused controlled powers — see qgp.circuits.phase_estimation —,
 the multiplexed RY as S·H·D·H·S† on the flag with D diagonal over clock ⊗ flag, and the state
 preparation's uniformly controlled RYs as multiplexers: only instructions Aer applies natively, so
 the simulation form is never transpiled).
@@ -39,7 +39,7 @@ import numpy as np
 from qiskit.circuit import QuantumCircuit, QuantumRegister
 from qiskit.circuit.library import DiagonalGate, UCRYGate
 
-from qgp.encoding import (
+from qgp.circuits.encoding import (
     BLOCK,
     SYSTEM,
     BlockEncoding,
@@ -48,7 +48,7 @@ from qgp.encoding import (
     check_matrix,
 )
 from qgp.errors import QgpError
-from qgp.phase_estimation import (
+from qgp.circuits.phase_estimation import (
     CLOCK,
     Form,
     PhaseOracle,

@@ -9,7 +9,7 @@ A block encoding of a real symmetric matrix A is a unitary U on ``system`` ⊗ `
 
 α ≥ ‖A‖ the subnormalisation. ``block`` qubits come after the ``system`` qubits, so in U's matrix
 (index = system + 2^m · block) the top-left 2^m × 2^m block is A/α. Both encodings here are
-Hermitian as built (U² = I), which the qubitization walk of `qgp.phase_estimation` needs
+Hermitian as built (U² = I), which the qubitization walk of `qgp.circuits.phase_estimation` needs
 (Low & Chuang, Quantum 3, 163 (2019)).
 """
 
@@ -309,12 +309,12 @@ def pauli_decomposition(A) -> SparsePauliOp:
     are imaginary-weighted and vanish for real symmetric A; terms with |c| < 1e-14 are dropped.
 
     Refuses first (`require_decomposition_memory`, with `pauli_term_bounds`) when its arrays
-    cannot fit in the memory the process has left (`qgp.simulate.available_memory_bytes`);
+    cannot fit in the memory the process has left (`qgp.readout.simulate.available_memory_bytes`);
     inference and inspection check the configured cap before calling it.
     """
     shape = np.shape(A)
     if len(shape) == 2 and shape[0] == shape[1] and shape[0] >= 1 and not shape[0] & (shape[0] - 1):
-        from qgp.simulate import available_memory_bytes
+        from qgp.readout.simulate import available_memory_bytes
 
         m = shape[0].bit_length() - 1
         cap = available_memory_bytes()

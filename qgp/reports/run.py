@@ -14,10 +14,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .files import atomic_open, atomic_write_text, check_outputs
-from .inference import InferenceResult
-from .inspection import SIMULATION_CAVEAT
-from .settings import Config
+from qgp.files import atomic_open, atomic_write_text, check_outputs
+from qgp.readout.inference import InferenceResult
+from qgp.reports.inspection import SIMULATION_CAVEAT
+from qgp.settings import Config
 
 __all__ = ["PREDICTIONS_FILE", "SUMMARY_FILE", "COLUMN_GUIDE_FILE", "FIGURES_DIR", "run_outputs", "config_inputs", "provenance", "PREDICTION_COLUMNS", "prediction_columns", "write_predictions", "summary_document", "write_summary", "versions", "config_document", "to_json", "run_config"]
 
@@ -188,8 +188,8 @@ def summary_document(result: InferenceResult, cfg: Config | None = None, resourc
 
 
 def result_resources(result: InferenceResult) -> dict:
-    """Resource counts of the inversion circuits (qgp.resources), query-level and gate-level."""
-    from .resources import inference_resources
+    """Resource counts of the inversion circuits (qgp.circuits.resources), query-level and gate-level."""
+    from qgp.circuits.resources import inference_resources
 
     return inference_resources(result)
 
@@ -219,9 +219,9 @@ def run_config(cfg: Config, out: Path, *, overwrite: bool = False, quiet: bool =
     ``overwrite``; every file is written atomically (temporary name, then rename), and summary.json
     last, so a folder with a summary.json holds a complete run.
     """
-    from .figures import run_figures
-    from .inference import infer
-    from .problem import problem_from_config
+    from qgp.reports.figures import run_figures
+    from qgp.readout.inference import infer
+    from qgp.classical.problem import problem_from_config
 
     out = check_outputs(out, run_outputs(), force=overwrite, inputs=config_inputs(cfg))
     problem = problem_from_config(cfg)

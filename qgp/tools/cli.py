@@ -11,8 +11,8 @@ import math
 import sys
 from pathlib import Path
 
-from . import __version__
-from .errors import QgpError
+from qgp import __version__
+from qgp.errors import QgpError
 
 __all__ = ["main", "build_parser"]
 
@@ -23,7 +23,7 @@ def _config_arg(p: argparse.ArgumentParser) -> None:
 
 
 def _resolve_config(args) -> Path:
-    from .demo import demo_config_path
+    from qgp.demo import demo_config_path
 
     if args.demo and args.config is not None:
         raise QgpError("give a CONFIG file or --demo, not both")
@@ -155,7 +155,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def _cmd_figures(args) -> int:
-    from .sweep_figures import figures_command
+    from qgp.sweeps.figures import figures_command
 
     return figures_command(args.store, args.out, only=args.only, force=args.force)
 
@@ -169,9 +169,9 @@ def _fmt(x) -> str:
 
 
 def _cmd_inspect(args) -> int:
-    from .config import load_config
-    from .inspection import inspect_problem, simulation_rows
-    from .problem import problem_from_config
+    from qgp.config import load_config
+    from qgp.reports.inspection import inspect_problem, simulation_rows
+    from qgp.classical.problem import problem_from_config
 
     cfg = load_config(_resolve_config(args))
     info = inspect_problem(problem_from_config(cfg), cfg.circuit, cfg.readout)
@@ -212,8 +212,8 @@ def _cmd_inspect(args) -> int:
 
 
 def _run_to(cfg_path: Path, out: Path, *, force: bool, quiet: bool):
-    from .config import load_config
-    from .report import run_config
+    from qgp.config import load_config
+    from qgp.reports.run import run_config
 
     cfg = load_config(cfg_path)
     return run_config(cfg, out, overwrite=force, quiet=quiet)
@@ -227,8 +227,8 @@ def _cmd_run(args) -> int:
 
 
 def _cmd_export(args) -> int:
-    from .config import load_config
-    from .export import export_config
+    from qgp.config import load_config
+    from qgp.circuits.qasm import export_config
 
     paths = export_config(
         load_config(_resolve_config(args)), args.out, measure=args.measure, test_point=args.test_point, force=args.force
@@ -239,7 +239,7 @@ def _cmd_export(args) -> int:
 
 
 def _cmd_demo(args) -> int:
-    from .demo import demo_config_path
+    from qgp.demo import demo_config_path
 
     doc, out = _run_to(demo_config_path(), args.out, force=args.force, quiet=args.quiet)
     rows = [
@@ -261,7 +261,7 @@ def _cmd_demo(args) -> int:
 
 
 def _cmd_sweep(args) -> int:
-    from .sweeps import format_status, load_sweep, run_sweep, store_status
+    from qgp.sweeps.execute import format_status, load_sweep, run_sweep, store_status
 
     if args.status is not None:
         if args.sweep is not None or args.store is not None:
@@ -296,7 +296,7 @@ def _cmd_sweep(args) -> int:
 
 
 def _cmd_results(args) -> int:
-    from .sweeps import export_csv
+    from qgp.sweeps.execute import export_csv
 
     n = export_csv(args.store, args.csv, test_points=args.test_points, force=args.force)
     print(f"wrote {n} row(s) to {args.csv}")
@@ -304,7 +304,7 @@ def _cmd_results(args) -> int:
 
 
 def _cmd_bench(args) -> int:
-    from .bench import FULL, QUICK, format_table, run_bench
+    from qgp.tools.bench import FULL, QUICK, format_table, run_bench
 
     doc = run_bench(QUICK if args.quick else FULL)
     print(json.dumps(doc, indent=2) if args.json else format_table(doc))

@@ -15,7 +15,7 @@ note, never drawn empty):
 6. ``fig6_circuit_cost``      CX count and depth of the 1/λ circuit against system and clock qubits;
 7. ``fig7_scaling``           κ, s and ‖A‖_F/‖A‖ against n at fixed hyperparameters, and the clock
                               qubits and success probability a 1% error needs — simulated where the
-                              store has runs, the closed-form filter model (qgp.filter_model) beyond,
+                              store has runs, the closed-form filter model (qgp.readout.filter_model) beyond,
                               marked "model". Kernel matrices' κ and sparsity tend to grow with n
                               (Lowe, Kim & Bondesan, arXiv:2505.22502 (2025), as its abstract reports).
 
@@ -46,9 +46,9 @@ from typing import Any
 
 import numpy as np
 
-from .errors import QgpError
-from .files import atomic_open, atomic_write_text, check_outputs
-from .figures import PALETTE, SINGLE_COLUMN, figure_style, save_figure
+from qgp.errors import QgpError
+from qgp.files import atomic_open, atomic_write_text, check_outputs
+from qgp.reports.figures import PALETTE, SINGLE_COLUMN, figure_style, save_figure
 
 __all__ = [
     "FIGURES",
@@ -100,7 +100,7 @@ _DISPLAY = {"‖A‖_F / ‖A‖": r"$\|A\|_F\,/\,\|A\|$"}
 def load_points(source) -> tuple[list, str]:
     """(done points, a description) from a store path, or from a sequence of StoredPoint-likes."""
     if isinstance(source, (str, Path)):
-        from .store import open_store
+        from qgp.sweeps.store import open_store
 
         with open_store(source) as store:
             points = store.points("done")
@@ -730,7 +730,7 @@ def _fig3(points) -> _Figure:
         "1/κ² and 1/κ are worst-case bounds (ŷ or k̂* wholly on the largest eigenvalue; C is near the a-priori lower "
         "bound on λ_min, so they are not strict), not the expected rate: GP vectors also weigh the small eigenvalues, "
         f"and the fitted log–log slopes of the plotted points are {_slopes_text(measured)}. "
-        "Where λ_min falls below what the clock resolves, C is set by the clock grid instead (qgp.inversion's filter floor) "
+        "Where λ_min falls below what the clock resolves, C is set by the clock grid instead (qgp.circuits.inversion's filter floor) "
         "and P levels off; the error pays instead (fig. 2). Exact outcome probabilities."
     )
     return _Figure("fig3_success_probability", rows, panels, (2, 1), (SINGLE_COLUMN[0], 3.9), caption, dropped,
@@ -894,7 +894,7 @@ def _fig6(points) -> _Figure:
     grid = (2, 2) if len(panels) == 4 else (2, 1)
     caption = (
         "Circuit cost of the 1/λ inversion circuit (phase estimation, rotation, uncompute; the mean's circuit): "
-        "CX count and depth after transpiling to the ['u', 'cx'] basis at optimisation level 0 (qgp.resources), against "
+        "CX count and depth after transpiling to the ['u', 'cx'] basis at optimisation level 0 (qgp.circuits.resources), against "
         "system qubits and clock qubits, per phase oracle and block encoding. † marks synthesis-dependent counts "
         "(dense controlled unitaries: the exact e^(iAt) oracle and the dilation encoding), which say how qiskit "
         "decomposes a generic matrix, not what an algorithm needs."
@@ -907,8 +907,8 @@ def _fig6(points) -> _Figure:
 
 
 def config_from_document(doc: Mapping[str, Any]):
-    """The `qgp.settings.Config` of a stored config document (qgp.report.config_document)."""
-    from .settings import CircuitSettings, Config, DataSpec, KernelSpec, NoiseSpec, ReadoutSettings
+    """The `qgp.settings.Config` of a stored config document (qgp.reports.run.config_document)."""
+    from qgp.settings import CircuitSettings, Config, DataSpec, KernelSpec, NoiseSpec, ReadoutSettings
 
     d, k, nz, c, r = (dict(doc.get(s) or {}) for s in ("data", "kernel", "noise", "circuit", "readout"))
     d["train"] = Path(d["train"])
@@ -926,14 +926,14 @@ def config_from_document(doc: Mapping[str, Any]):
 
 
 def _model_inversion(lam_bounds, alpha, settings, rotation: str):
-    """The constants of `qgp.inversion.build_inversion` without building a circuit (any n).
+    """The constants of `qgp.circuits.inversion.build_inversion` without building a circuit (any n).
 
     Same rules: clock grid α·cos(2πk/2^c) (walk) or 2πk/(t·2^c) (exact, t derived from λ_hi),
     floor max(λ_lo − one bin, λ_lo/2), admitted = positive and ≥ floor, C = smallest admitted λ̃.
     tests/test_sweep_figures.py checks it against build_inversion.
     """
-    from .inversion import filter_floor
-    from .phase_estimation import derived_evolution_time, evolution_clock_eigenvalues, walk_clock_eigenvalues
+    from qgp.circuits.inversion import filter_floor
+    from qgp.circuits.phase_estimation import derived_evolution_time, evolution_clock_eigenvalues, walk_clock_eigenvalues
 
     lo, hi = lam_bounds
     c = settings.clock_qubits
@@ -963,17 +963,17 @@ def _model_inversion(lam_bounds, alpha, settings, rotation: str):
 
 
 def _response(inv, lam: np.ndarray, chunk_entries: int = 1 << 21) -> np.ndarray:
-    """`qgp.filter_model.filter_response` in chunks of eigenvalues (the weights are n × 2^c)."""
-    from .filter_model import filter_response
+    """`qgp.readout.filter_model.filter_response` in chunks of eigenvalues (the weights are n × 2^c)."""
+    from qgp.readout.filter_model import filter_response
 
     step = max(1, chunk_entries >> inv.settings.clock_qubits)
     return np.concatenate([filter_response(inv, lam[i : i + step]) for i in range(0, lam.size, step)])
 
 
 def _walk_alpha(A: np.ndarray, encoding: str, lam_max: float) -> float:
-    """α of the block encoding qgp.encoding builds: row-sum bound (dilation) or Σ|Pauli coefficients| (LCU)."""
+    """α of the block encoding qgp.circuits.encoding builds: row-sum bound (dilation) or Σ|Pauli coefficients| (LCU)."""
     if encoding == "lcu":
-        from .encoding import pauli_decomposition
+        from qgp.circuits.encoding import pauli_decomposition
 
         return float(np.sum(np.abs(pauli_decomposition(A).coeffs)))
     return max(float(np.max(np.sum(np.abs(A), axis=1))), lam_max)
@@ -983,16 +983,16 @@ class _FilterModel:
     """A problem's padded A eigendecomposed once, and the ideal circuits' answers for any clock size.
 
     With A = V diag(λ) Vᵀ (padded), f the inverse and h the inverse_sqrt response of
-    qgp.filter_model, C and C′ their scales, m the prior mean and ŷ, k̂* the unit inputs:
+    qgp.readout.filter_model, C and C′ their scales, m the prior mean and ŷ, k̂* the unit inputs:
 
         μ − m = k*ᵀ V diag(f/C) Vᵀ y,     v = k** − k*ᵀ V diag(h/C′) Vᵀ k*,
         P_inv = Σᵢ f(λᵢ)² (vᵢᵀŷ)²,        P_var = minₜ Σᵢ h(λᵢ) (vᵢᵀk̂*ₜ)²,
 
-    which is what `qgp.inference.infer` estimates from the circuits with exact probabilities.
+    which is what `qgp.readout.inference.infer` estimates from the circuits with exact probabilities.
     """
 
     def __init__(self, problem, circuit):
-        from .system import eigenvalue_bounds
+        from qgp.classical.system import eigenvalue_bounds
 
         self.problem = problem
         self.oracle = circuit.evolution if circuit.evolution in ("exact", "walk") else "exact"
@@ -1038,7 +1038,7 @@ def model_errors(problem, circuit) -> dict[str, float | None]:
     """What the closed-form filter model predicts for ``problem`` and ``circuit`` with exact probabilities.
 
     Keys as in summary.json: mean_rel_rmse, variance_rel_rmse, success_probability_inversion,
-    success_probability_variance_min. Exact for the exact and walk oracles (qgp.filter_model);
+    success_probability_variance_min. Exact for the exact and walk oracles (qgp.readout.filter_model);
     a Trotter oracle is modelled as exact.
     """
     m = _FilterModel(problem, circuit)
@@ -1060,7 +1060,7 @@ def scaling_model(cfg, n_values: Iterable[int], *, max_clock: int = MODEL_MAX_CL
     smallest c in [2, ``max_clock``] at which the mean (resp. latent variance) has relative RMSE
     ≤ the target, with the success probability at that c (None where not reached).
     """
-    from .problem import problem_from_config
+    from qgp.classical.problem import problem_from_config
 
     out = []
     for n in n_values:
@@ -1095,7 +1095,7 @@ def scaling_model(cfg, n_values: Iterable[int], *, max_clock: int = MODEL_MAX_CL
 
 
 def _rel_rmse(err: np.ndarray, ref: np.ndarray) -> float:
-    """As qgp.inference: RMSE of the error over the RMS of the reference."""
+    """As qgp.readout.inference: RMSE of the error over the RMS of the reference."""
     scale = math.sqrt(float(np.mean(ref**2)))
     return math.sqrt(float(np.mean(err**2))) / scale if scale > 0 else math.inf
 
@@ -1149,7 +1149,7 @@ def _fig7(points) -> _Figure:
                                  len(vals), "store", tuple(p.grid_index for p in by_c[c])))
 
     # (a) and the model: A's diagnostics and the filter model for every n up to the data set's size.
-    from .config import load_dataset
+    from qgp.config import load_dataset
 
     base = pts[0]
     try:
@@ -1192,7 +1192,7 @@ def _fig7(points) -> _Figure:
         "size n (nested subsamples of the same data); (b) the smallest clock register c at which the mean, resp. latent "
         "variance, is within 1% relative RMSE of the exact GP; (c) the success probabilities at that c (1/λ circuit: "
         "the inversion on ŷ; 1/√λ circuit: smallest P(flag = 1) over test points), beside 1/κ² and 1/κ. Markers: simulated "
-        f"runs (c ≤ {c_max_sim}); dashed: the closed-form filter model (qgp.filter_model; exact for the exact and walk "
+        f"runs (c ≤ {c_max_sim}); dashed: the closed-form filter model (qgp.readout.filter_model; exact for the exact and walk "
         "oracles, ideal probabilities), marked (model), which reaches beyond what can be simulated. Kernel matrices' κ "
         "and sparsity tend to grow with n (Lowe, Kim & Bondesan, arXiv:2505.22502, 2025, as reported in its abstract)."
     )

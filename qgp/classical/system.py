@@ -20,7 +20,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 import scipy.sparse as sp
 
-from .errors import QgpError
+from qgp.errors import QgpError
 
 __all__ = [
     "SystemDiagnostics",

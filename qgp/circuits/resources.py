@@ -21,7 +21,7 @@ level 0 nothing is optimised across gates, so these are the counts and depth of 
 ``transpile`` of the whole circuit (tests/test_resources.py checks this on small cases) — except
 with the ``lcu`` encoding, where a direct transpile may borrow idle qubits of other registers as
 ancillas for the multi-controlled Paulis and comes out lower (the composed counts are then an
-upper bound). They are exactly the gates of the file `qgp.export` writes. Pieces are transpiled
+upper bound). They are exactly the gates of the file `qgp.circuits.qasm` writes. Pieces are transpiled
 with ``qubits_initially_zero=False``: they run mid-circuit, and with the default qiskit used
 "clean" idle qubits of an LCU piece as ancillas, which is wrong in context.
 
@@ -49,10 +49,10 @@ import numpy as np
 from qiskit import transpile
 from qiskit.circuit import ControlledGate, Gate, Instruction, QuantumCircuit
 
-from qgp.encoding import BLOCK, SYSTEM, check_matrix, pauli_decomposition
+from qgp.circuits.encoding import BLOCK, SYSTEM, check_matrix, pauli_decomposition
 from qgp.errors import QgpError
-from qgp.inversion import FLAG, InversionCircuit, build_inversion, check_inversion_inputs
-from qgp.phase_estimation import CLOCK, derived_evolution_time
+from qgp.circuits.inversion import FLAG, InversionCircuit, build_inversion, check_inversion_inputs
+from qgp.circuits.phase_estimation import CLOCK, derived_evolution_time
 from qgp.settings import CircuitSettings, Rotation
 
 __all__ = [
@@ -493,7 +493,7 @@ def _register_offsets(registers) -> dict[str, int]:
 
 @dataclass(frozen=True)
 class GateInversion:
-    """The gate-form circuit of `qgp.inversion.build_inversion` and its decomposition into runs.
+    """The gate-form circuit of `qgp.circuits.inversion.build_inversion` and its decomposition into runs.
 
     ``inversion`` holds the circuit and its constants (C, α, t, the decoded clock eigenvalues…);
     ``decomposed`` the same circuit as runs of distinct pieces, ``system | clock | flag | block``.
@@ -767,7 +767,7 @@ def _query_only(a: np.ndarray, settings: CircuitSettings, rotation, bounds, est:
             alpha, terms = float(np.sum(np.abs(op.coeffs.real))), len(op)
             k = max(1, math.ceil(math.log2(terms)))
         else:
-            # The dilation's α is the row-sum (Gershgorin) bound max_i Σ_j |A_ij| ≥ ‖A‖ (qgp.encoding),
+            # The dilation's α is the row-sum (Gershgorin) bound max_i Σ_j |A_ij| ≥ ‖A‖ (qgp.circuits.encoding),
             # taken directly: its eigensolve and dense 2^(m+1) unitary are what a large A cannot afford.
             alpha, k = float(np.max(np.sum(np.abs(a), axis=1))), 1
     else:
@@ -789,7 +789,7 @@ def inversion_resources(
     prepare=None,
     uncompute: bool | None = None,
 ) -> CircuitResources:
-    """Resources of the GATE-form inversion circuit of `qgp.inversion.build_inversion`.
+    """Resources of the GATE-form inversion circuit of `qgp.circuits.inversion.build_inversion`.
 
     With ``gate_level`` the circuit is decomposed and counted (see the module docstring) unless
     `estimate_size` is over the limits: then the counts are None and ``gate_level_skipped`` says

@@ -32,10 +32,10 @@ import numpy as np
 from qiskit import ClassicalRegister, QuantumCircuit, QuantumRegister
 from qiskit.circuit import CircuitInstruction
 
-from .encoding import MultiplexerGate, amplitude_encoding, amplitude_encoding_matrix
-from .errors import QgpError
-from .inversion import FLAG, InversionCircuit, flag_rotation_circuit, rotation_angles, statevector_array
-from .simulate import require_memory, run_counts, run_saved_statevectors, run_statevectors, statevector_bytes
+from qgp.circuits.encoding import MultiplexerGate, amplitude_encoding, amplitude_encoding_matrix
+from qgp.errors import QgpError
+from qgp.circuits.inversion import FLAG, InversionCircuit, flag_rotation_circuit, rotation_angles, statevector_array
+from qgp.readout.simulate import require_memory, run_counts, run_saved_statevectors, run_statevectors, statevector_bytes
 
 __all__ = [
     "PROBE",
@@ -207,7 +207,7 @@ def operators_from_reference_run(
     reference_qubits: int | None = None,
     progress: Callable[[str], None] | None = None,
 ) -> CircuitOperators:
-    """B and M from one simulator job (``timings``: see `qgp.simulate.run_statevectors`).
+    """B and M from one simulator job (``timings``: see `qgp.readout.simulate.run_statevectors`).
 
     When the two circuits share their phase estimation (`_shares_prefix`; infer builds them so)
     that prefix is simulated once: the run of ``inverse`` saves the state ψ just before its
@@ -258,7 +258,7 @@ def operators_from_reference_run(
 
 
 #: What each kind of reference-register run is (the ``what`` of `CircuitOperators.simulation_runs`
-#: and of the simulation plan in qgp.inspection).
+#: and of the simulation plan in qgp.reports.inspection).
 ONE_RUN = "inversion with a reference register: B and M in one run (state saved before the rotation)"
 SPLIT_RUN = "inversion with a split reference register: columns of B and M per run"
 SPLIT_RUN_B = "inversion with a split reference register: columns of B per run"
@@ -313,7 +313,7 @@ def _gram_inversion(inverse_sqrt: InversionCircuit) -> InversionCircuit:
     """The uncomputed circuit whose post-selected block is ``inverse_sqrt``'s M = E†E: its phase
     estimation, the rotation with amplitudes g², and the inverse phase estimation (see
     `_same_gram_operator`)."""
-    from .phase_estimation import inverse_phase_estimation_circuit, phase_estimation_circuit
+    from qgp.circuits.phase_estimation import inverse_phase_estimation_circuit, phase_estimation_circuit
 
     oracle = inverse_sqrt.oracle
     if oracle is None:
