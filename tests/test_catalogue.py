@@ -1,4 +1,4 @@
-"""The catalogue of reference circuits in circuits/ (qgp.circuits.qasm.build_catalogue)."""
+"""The catalogue of reference circuits in circuits/ (qgp.tools.catalogue.build_catalogue)."""
 
 from __future__ import annotations
 
@@ -12,7 +12,9 @@ from qiskit import qasm3, transpile
 from qiskit_aer import AerSimulator
 
 from qgp.circuits.encoding import normalised_amplitudes
-from qgp.circuits.qasm import CATALOGUE, REGENERATE_COMMAND, catalogue_entry, fused_circuit, gate_counts_by_origin, main
+from qgp.circuits.export import gate_counts_by_origin
+from qgp.circuits.qasm import fused_circuit
+from qgp.tools.catalogue import CATALOGUE, REGENERATE_COMMAND, catalogue_entry, main
 from qgp.circuits.inversion import build_inversion, statevector_array
 from qgp.circuits.resources import gate_inversion, resources_of
 from qgp.readout.simulate import run_statevector

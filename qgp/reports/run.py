@@ -8,18 +8,18 @@ from __future__ import annotations
 import csv
 import json
 import math
-import platform
 from dataclasses import asdict, is_dataclass
 from pathlib import Path
 
 import numpy as np
 
+from qgp.environment import versions
 from qgp.files import atomic_open, atomic_write_text, check_outputs
 from qgp.readout.inference import InferenceResult
 from qgp.reports.inspection import SIMULATION_CAVEAT
 from qgp.settings import Config
 
-__all__ = ["PREDICTIONS_FILE", "SUMMARY_FILE", "COLUMN_GUIDE_FILE", "FIGURES_DIR", "run_outputs", "config_inputs", "provenance", "PREDICTION_COLUMNS", "prediction_columns", "write_predictions", "summary_document", "write_summary", "versions", "config_document", "to_json", "run_config"]
+__all__ = ["PREDICTIONS_FILE", "SUMMARY_FILE", "COLUMN_GUIDE_FILE", "FIGURES_DIR", "run_outputs", "config_inputs", "provenance", "PREDICTION_COLUMNS", "prediction_columns", "write_predictions", "summary_document", "write_summary", "config_document", "to_json", "run_config"]
 
 PREDICTIONS_FILE = "predictions.csv"
 SUMMARY_FILE = "summary.json"
@@ -83,18 +83,6 @@ def write_predictions(result: InferenceResult, path: Path) -> None:
         for row in zip(*columns):
             w.writerow([str(int(v)) if isinstance(v, (np.integer,)) else _num(v) for v in row])
     atomic_write_text(path.parent / COLUMN_GUIDE_FILE, _COLUMN_GUIDE.format(caveat=SIMULATION_CAVEAT))
-
-
-def versions() -> dict[str, str]:
-    from importlib.metadata import PackageNotFoundError, version
-
-    out = {"python": platform.python_version()}
-    for pkg in ("qgp", "qiskit", "qiskit-aer", "numpy", "scipy", "matplotlib"):
-        try:
-            out[pkg] = version(pkg)
-        except PackageNotFoundError:
-            out[pkg] = "not installed"
-    return out
 
 
 def to_json(obj):

@@ -228,7 +228,7 @@ def _cmd_run(args) -> int:
 
 def _cmd_export(args) -> int:
     from qgp.config import load_config
-    from qgp.circuits.qasm import export_config
+    from qgp.circuits.export import export_config
 
     paths = export_config(
         load_config(_resolve_config(args)), args.out, measure=args.measure, test_point=args.test_point, force=args.force
