@@ -23,7 +23,7 @@ from qgp.settings import (
     Config,
     DataSpec,
     Encoding,
-    Evolution,
+    EVOLUTION_USES_BLOCK_ENCODING,
     KernelFamily,
     KernelSpec,
     NoiseSpec,
@@ -151,7 +151,7 @@ class _Validator:
     def choice(self, table, section, key, default, literal_type):
         if key not in table:
             return default
-        allowed = choices(literal_type)
+        allowed = literal_type if isinstance(literal_type, tuple) else choices(literal_type)
         val = table[key]
         if val not in allowed or isinstance(val, bool):
             shown = ", ".join(repr(a) for a in allowed)
@@ -231,13 +231,15 @@ def _parse_noise(v: _Validator, t: dict, kernel: KernelSpec) -> NoiseSpec:
 
 def _parse_circuit(v: _Validator, t: dict) -> CircuitSettings:
     d = CircuitSettings()
-    evolution = v.choice(t, "circuit", "evolution", d.evolution, Evolution)
+    # The registries' names, declared in qgp.settings (this stage precedes the circuits stage).
+    evolution = v.choice(t, "circuit", "evolution", d.evolution, tuple(EVOLUTION_USES_BLOCK_ENCODING))
     encoding = v.choice(t, "circuit", "encoding", d.encoding, Encoding)
-    if "encoding" in t and evolution != "walk":
+    if "encoding" in t and not EVOLUTION_USES_BLOCK_ENCODING[evolution]:
+        users = " or ".join(f"evolution = \"{name}\"" for name, uses in EVOLUTION_USES_BLOCK_ENCODING.items() if uses)
         raise v.fail(
             "circuit",
             "encoding",
-            f"applies only to evolution = \"walk\" (the {evolution!r} oracle uses no block register); remove it",
+            f"applies only to {users} (the {evolution!r} oracle uses no block register); remove it",
         )
     order = t.get("trotter_order", d.trotter_order)
     if order not in (1, 2) or isinstance(order, bool):

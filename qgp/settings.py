@@ -17,6 +17,7 @@ __all__ = [
     "KernelFamily",
     "Encoding",
     "Evolution",
+    "EVOLUTION_USES_BLOCK_ENCODING",
     "Strategy",
     "Rotation",
     "TrotterOrder",
@@ -30,8 +31,16 @@ __all__ = [
 ]
 
 KernelFamily = Literal["rbf", "matern32", "matern52", "wendland"]
+# The inversion methods and block encodings are registries in the circuits stage
+# (qgp.circuits.methods.METHODS, qgp.circuits.methods.encodings.ENCODINGS). `qgp.config` sits before
+# that stage and may not import it, so it validates against these declarations, which
+# tests/test_methods.py checks list exactly the registries' names (and uses_block_encoding).
 Encoding = Literal["lcu", "dilation"]
 Evolution = Literal["exact", "trotter", "walk"]
+
+#: For each ``[circuit] evolution``: whether ``[circuit] encoding`` applies to it (the method's
+#: ``uses_block_encoding``).
+EVOLUTION_USES_BLOCK_ENCODING: dict[str, bool] = {"exact": False, "trotter": False, "walk": True}
 Strategy = Literal["amortised", "per-point"]
 Rotation = Literal["inverse", "inverse_sqrt"]
 TrotterOrder = Literal[1, 2]
@@ -95,8 +104,8 @@ class NoiseSpec:
 class CircuitSettings:
     """``[circuit]``: the inversion circuit.
 
-    ``encoding`` applies only to ``evolution = "walk"`` (the other oracles need no block
-    register). ``evolution_time`` and ``filter_floor`` override the values derived from
+    ``encoding`` applies only to methods that use a block encoding (``evolution = "walk"``; the
+    other oracles need no block register). ``evolution_time`` and ``filter_floor`` override the values derived from
     the eigenvalue bounds.
     """
 

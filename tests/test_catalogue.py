@@ -12,7 +12,7 @@ from qiskit import qasm3, transpile
 from qiskit_aer import AerSimulator
 
 from qgp.circuits.encoding import normalised_amplitudes
-from qgp.circuits.export import gate_counts_by_origin
+from qgp.reports.export import gate_counts_by_origin
 from qgp.circuits.qasm import fused_circuit
 from qgp.tools.catalogue import CATALOGUE, REGENERATE_COMMAND, catalogue_entry, main
 from qgp.circuits.inversion import build_inversion, statevector_array

@@ -1,4 +1,4 @@
-"""OpenQASM 3 export of the inversion circuits (qgp.circuits.qasm, qgp.circuits.export, `qgp export`)."""
+"""OpenQASM 3 export of the inversion circuits (qgp.circuits.qasm, qgp.reports.export, `qgp export`)."""
 
 from __future__ import annotations
 
@@ -15,7 +15,7 @@ from qiskit_aer import AerSimulator
 from qgp.tools.cli import main as cli_main
 from qgp.config import load_config
 from qgp.errors import QgpError
-from qgp.circuits.export import INVERSION_FILE, INVERSION_SQRT_FILE, RESOURCES_FILE, export_config, hadamard_file
+from qgp.reports.export import INVERSION_FILE, INVERSION_SQRT_FILE, RESOURCES_FILE, export_config, hadamard_file
 from qgp.circuits.qasm import fused_circuit
 from qgp.tools.catalogue import CATALOGUE
 from qgp.readout.filter_model import model_operator
@@ -469,7 +469,7 @@ def test_export_refuses_too_many_oracle_calls_before_building(monkeypatch, tmp_p
     def _no_build(*args, **kwargs):
         raise AssertionError("a circuit was built before the size check")
 
-    monkeypatch.setattr("qgp.circuits.export.gate_inversion", _no_build)
+    monkeypatch.setattr("qgp.reports.export.gate_inversion", _no_build)
     with pytest.raises(QgpError, match="too large") as err:
         export_config(cfg, tmp_path / "out")
     assert "131070" in str(err.value)

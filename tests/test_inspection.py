@@ -2,7 +2,7 @@
 register, the memory guard before the LCU's Pauli decomposition, and the clock-register check.
 
 Sources beside each check. The memory model throughout: a statevector of q qubits is 16·2^q bytes
-(complex128 amplitudes, common practice; qgp.readout.simulate.statevector_bytes).
+(complex128 amplitudes, common practice; qgp.memory.statevector_bytes).
 """
 
 from __future__ import annotations
@@ -237,9 +237,9 @@ def test_lcu_guard_refuses_before_decomposing(monkeypatch):
 
 def test_decomposition_refuses_itself_when_memory_is_short(monkeypatch):
     # The last line of defence inside pauli_decomposition: against the memory the process has left.
-    import qgp.readout.simulate
+    import qgp.memory
 
-    monkeypatch.setattr(qgp.readout.simulate, "available_memory_bytes", lambda: 1000)
+    monkeypatch.setattr(qgp.memory, "available_memory_bytes", lambda: 1000)
     with pytest.raises(QgpError, match='use \\[circuit\\] encoding = "dilation"'):
         encoding.pauli_decomposition(np.eye(32))
 
@@ -317,7 +317,7 @@ def test_available_memory_respects_the_address_space_limit():
     # `ulimit -v` (RLIMIT_AS) is invisible in /proc/meminfo; the cap must not exceed what is left.
     code = (
         "import resource\n"
-        "from qgp.readout.simulate import available_memory_bytes, _status_bytes\n"
+        "from qgp.memory import available_memory_bytes, _status_bytes\n"
         "size = _status_bytes('VmSize:')\n"
         "resource.setrlimit(resource.RLIMIT_AS, (size + 2**30, resource.RLIM_INFINITY))\n"
         "print(available_memory_bytes(), 2**30 + size - _status_bytes('VmSize:'))\n"

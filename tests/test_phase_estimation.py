@@ -11,20 +11,14 @@ from qiskit_aer import AerSimulator
 
 from qgp.circuits.encoding import block_encoding, dilation_block_encoding, pauli_decomposition
 from qgp.errors import QgpError
+from qgp.circuits.methods.exact import evolution_clock_eigenvalues, exact_oracle
+from qgp.circuits.methods.trotter import controlled_trotter_step, product_formula_matrix, trotter_oracle
+from qgp.circuits.methods.walk import controlled_walk, walk_clock_eigenvalues, walk_matrix, walk_oracle
 from qgp.circuits.phase_estimation import (
-    controlled_trotter_step,
-    controlled_walk,
     derived_evolution_time,
-    evolution_clock_eigenvalues,
-    exact_oracle,
     inverse_phase_estimation_circuit,
     phase_estimation_circuit,
     phase_oracle,
-    product_formula_matrix,
-    trotter_oracle,
-    walk_clock_eigenvalues,
-    walk_matrix,
-    walk_oracle,
 )
 from qgp.settings import CircuitSettings
 

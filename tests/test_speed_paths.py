@@ -18,6 +18,7 @@ from qiskit import QuantumCircuit, QuantumRegister
 from qiskit.circuit.library import UCRYGate
 from qiskit.quantum_info import Operator, Statevector
 
+import qgp.circuits.methods.walk as walk
 import qgp.circuits.phase_estimation as pe
 from qgp.circuits.encoding import (
     MultiplexerGate,
@@ -33,7 +34,7 @@ from qgp.readout.estimators import (
     variance_circuit,
 )
 from qgp.readout.filter_model import model_operator
-from qgp.readout.inference import SIMULATED_FORM, _exact_model, _unit_inputs, clear_caches, infer
+from qgp.readout.inference import SIMULATED_FORM, _unit_inputs, clear_caches, infer
 from qgp.circuits.inversion import FLAG, build_inversion, flag_rotation_circuit, rotation_angles, statevector_array
 from qgp.classical.kernels import RBF
 from qgp.classical.problem import build_problem
@@ -124,12 +125,12 @@ def test_long_clock_register_splits_into_several_multiplexers(monkeypatch):
 def test_native_lcu_walk_pieces_are_the_gate_level_walk(monkeypatch):
     # Above _MAX_FUSED_QUBITS the LCU walk runs as native pieces (fused PREPARE, multiplexed
     # controlled SELECT, diagonal reflection); lower the limit so small cases take that path.
-    monkeypatch.setattr(pe, "_MAX_FUSED_QUBITS", 2)
+    monkeypatch.setattr(walk, "_MAX_FUSED_QUBITS", 2)
     a = _spd(4, 4)
     be = block_encoding(a, "lcu")
-    oracle = pe.walk_oracle(be, 2, "simulation")
+    oracle = walk.walk_oracle(be, 2, "simulation")
     assert oracle.walk_pieces is not None and oracle.power_matrices is None
-    resid = np.max(np.abs(Operator(oracle.repeats[0][0]).data - Operator(pe.controlled_walk(be)).data))
+    resid = np.max(np.abs(Operator(oracle.repeats[0][0]).data - Operator(walk.controlled_walk(be)).data))
     assert resid < TOL, f"controlled W differs by {resid:.3g}"
     qpe = pe.phase_estimation_circuit(oracle)
     assert is_native(qpe)
@@ -141,11 +142,11 @@ def test_native_lcu_walk_on_aer_applies_the_walk_matrix(monkeypatch):
     # 8 × 8: six block qubits, a 3-level split of PREPARE. qiskit's Operator of the gate-level
     # controlled W takes minutes here, so the reference is diag(I, W) with W = R·U assembled from
     # the Pauli terms and PREPARE's matrix (qgp.circuits.encoding), applied to random states on Aer.
-    monkeypatch.setattr(pe, "_MAX_FUSED_QUBITS", 2)
+    monkeypatch.setattr(walk, "_MAX_FUSED_QUBITS", 2)
     a = _spd(8, 8)
     be = block_encoding(a, "lcu")
-    cw = pe.walk_oracle(be, 1, "simulation").repeats[0][0]
-    w = pe.walk_matrix(be)
+    cw = walk.walk_oracle(be, 1, "simulation").repeats[0][0]
+    w = walk.walk_matrix(be)
     rng = np.random.default_rng(1)
     for _ in range(3):
         psi = rng.normal(size=2 * w.shape[0]) + 1j * rng.normal(size=2 * w.shape[0])
@@ -160,7 +161,7 @@ def test_native_lcu_walk_on_aer_applies_the_walk_matrix(monkeypatch):
 
 
 def test_native_lcu_inversion_on_aer_matches_gate_form(monkeypatch):
-    monkeypatch.setattr(pe, "_MAX_FUSED_QUBITS", 2)
+    monkeypatch.setattr(walk, "_MAX_FUSED_QUBITS", 2)
     a = _spd(4, 11)
     s = CircuitSettings(clock_qubits=3, evolution="walk", encoding="lcu")
     b = np.array([0.6, 0.2, -0.7, 0.3])
@@ -328,8 +329,12 @@ def test_exact_oracle_model_needs_no_circuit(settings, rotation):
 
     a = _spd(4, 17)
     bounds = _bounds(a)
+    from qgp.circuits.inversion import budget_reference_model
+    from qgp.circuits.methods import BUDGET_REFERENCE
+
+    assert BUDGET_REFERENCE == "exact"
     built = build_inversion(a, replace(settings, evolution="exact", trotter_steps=1), rotation, bounds, form="simulation")
-    model = _exact_model(settings, rotation, bounds)
+    model = budget_reference_model(settings, rotation, bounds)
     assert model.scale == built.scale
     assert model.evolution_time == built.evolution_time
     assert np.array_equal(model.clock_eigenvalues, built.clock_eigenvalues)

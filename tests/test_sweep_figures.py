@@ -62,7 +62,9 @@ _SEED_KEYS = {"readout.seed"}
 @pytest.fixture(scope="module")
 def drawn(tmp_path_factory):
     """{store name: (store path, output dir, outcomes)} for the four tiny sweeps."""
-    from qgp.sweeps.execute import parse_sweep, run_sweep, store_status
+    from qgp.sweeps.execute import run_sweep
+    from qgp.sweeps.export import store_status
+    from qgp.sweeps.grid import parse_sweep
 
     root = tmp_path_factory.mktemp("sweep_figures")
     out = {}
@@ -259,7 +261,8 @@ def test_filter_model_reproduces_the_simulated_circuits(drawn, evolution, encodi
 def test_model_inversion_constants_match_build_inversion(evolution, encoding, clock):
     from qgp.circuits.inversion import build_inversion
     from qgp.settings import CircuitSettings
-    from qgp.sweeps.figures import _model_inversion, _walk_alpha
+    from qgp.circuits.methods import method_alpha
+    from qgp.sweeps.figures.model import _model_inversion
     from qgp.classical.system import eigenvalue_bounds
 
     rng = np.random.default_rng(5)
@@ -267,7 +270,7 @@ def test_model_inversion_constants_match_build_inversion(evolution, encoding, cl
     A = X @ X.T + 0.3 * np.eye(4)
     bounds = eigenvalue_bounds(A, 0.3)
     settings = CircuitSettings(clock_qubits=clock, evolution=evolution, encoding=encoding)
-    alpha = _walk_alpha(A, encoding, float(np.linalg.eigvalsh(A)[-1])) if evolution == "walk" else None
+    alpha = method_alpha(A, settings, float(np.linalg.eigvalsh(A)[-1]))  # None for the exact oracle
     for rotation in ("inverse", "inverse_sqrt"):
         ref = build_inversion(A, settings, rotation, bounds, form="simulation")
         got = _model_inversion(bounds, alpha, settings, rotation)

@@ -34,7 +34,8 @@ from qgp.tools.cli import main
 from qgp.demo import demo_config_path
 from qgp.errors import QgpError
 from qgp.sweeps.store import APPLICATION_ID, SCHEMA_VERSION, bind_store, open_store
-from qgp.sweeps.execute import load_sweep, parse_sweep, run_sweep, valid_keys
+from qgp.sweeps.execute import run_sweep
+from qgp.sweeps.grid import load_sweep, parse_sweep, valid_keys
 
 REPO = Path(qgp.__file__).resolve().parents[1]
 
@@ -629,9 +630,9 @@ def test_results_csv_never_replaces_the_store_or_a_file_without_force(four_point
 
     # Written atomically: an export that fails half-way leaves the old file whole and no temporary
     # file (temporary name in the same folder, then rename(2), which is atomic: POSIX).
-    import qgp.sweeps.execute
+    import qgp.sweeps.export
 
-    real_cell, calls = qgp.sweeps.execute._cell, []
+    real_cell, calls = qgp.sweeps.export._cell, []
 
     def failing_cell(value):
         calls.append(value)
@@ -639,10 +640,10 @@ def test_results_csv_never_replaces_the_store_or_a_file_without_force(four_point
             raise RuntimeError("disk full (injected)")
         return real_cell(value)
 
-    monkeypatch.setattr(qgp.sweeps.execute, "_cell", failing_cell)
+    monkeypatch.setattr(qgp.sweeps.export, "_cell", failing_cell)
     with pytest.raises(RuntimeError, match="injected"):
-        qgp.sweeps.execute.export_csv(one, mine, force=True)
-    monkeypatch.setattr(qgp.sweeps.execute, "_cell", real_cell)
+        qgp.sweeps.export.export_csv(one, mine, force=True)
+    monkeypatch.setattr(qgp.sweeps.export, "_cell", real_cell)
     assert len(calls) == 30 and mine.read_text() == "a user's own table\n"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["mine.csv"]
     assert main(["results", str(one), "--csv", str(mine), "--force"]) == 0
@@ -652,7 +653,7 @@ def test_results_csv_never_replaces_the_store_or_a_file_without_force(four_point
 
 def test_a_second_sweep_on_a_store_in_use_refuses_and_runs_nothing(tmp_path):
     # Reproduced: two `qgp sweep` processes on one store both ran every point ("24 done" twice).
-    from qgp.sweeps.store import lock_path, lock_store
+    from qgp.sweeps.lock import lock_path, lock_store
 
     path = _project(tmp_path, SLOW)
     store = tmp_path / "r.sqlite"
@@ -687,7 +688,7 @@ def test_a_second_sweep_on_a_store_in_use_refuses_and_runs_nothing(tmp_path):
 
 def test_a_store_held_by_this_process_is_refused_by_a_second_run(tmp_path):
     # The same rule inside one process (two threads or calls): flock locks are per open file.
-    from qgp.sweeps.store import lock_store
+    from qgp.sweeps.lock import lock_store
 
     sweep = load_sweep(_project(tmp_path, FOUR))
     store = tmp_path / "r.sqlite"

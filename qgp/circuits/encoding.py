@@ -23,6 +23,7 @@ from qiskit.circuit import Gate, QuantumCircuit, QuantumRegister
 from qiskit.circuit.library import UCRYGate, UnitaryGate
 from qiskit.quantum_info import Operator, PauliList, SparsePauliOp
 
+from qgp import memory
 from qgp.errors import QgpError
 
 __all__ = [
@@ -38,6 +39,9 @@ __all__ = [
     "pauli_decomposition_bytes",
     "pauli_term_bounds",
     "require_decomposition_memory",
+    "lcu_block_qubits",
+    "lcu_alpha",
+    "dilation_alpha",
     "lcu_block_encoding",
     "dilation_block_encoding",
     "block_encoding",
@@ -309,15 +313,13 @@ def pauli_decomposition(A) -> SparsePauliOp:
     are imaginary-weighted and vanish for real symmetric A; terms with |c| < 1e-14 are dropped.
 
     Refuses first (`require_decomposition_memory`, with `pauli_term_bounds`) when its arrays
-    cannot fit in the memory the process has left (`qgp.readout.simulate.available_memory_bytes`);
+    cannot fit in the memory the process has left (`qgp.memory.available_memory_bytes`);
     inference and inspection check the configured cap before calling it.
     """
     shape = np.shape(A)
     if len(shape) == 2 and shape[0] == shape[1] and shape[0] >= 1 and not shape[0] & (shape[0] - 1):
-        from qgp.readout.simulate import available_memory_bytes
-
         m = shape[0].bit_length() - 1
-        cap = available_memory_bytes()
+        cap = memory.available_memory_bytes()
         if pauli_decomposition_bytes(m) > cap:  # the bound alone is too much: count the masks of A
             require_decomposition_memory(m, cap, pauli_term_bounds(A)[1])
     a = check_matrix(A)
@@ -421,8 +423,8 @@ def lcu_block_encoding(A) -> BlockEncoding:
     coeffs = op.coeffs.real
     n_terms = len(coeffs)
     m = op.num_qubits
-    alpha = float(np.sum(np.abs(coeffs)))
-    k = max(1, int(np.ceil(np.log2(n_terms))))
+    alpha = lcu_alpha(op)
+    k = lcu_block_qubits(n_terms)
     amps = np.zeros(2**k)
     amps[:n_terms] = np.sqrt(np.abs(coeffs) / alpha)
     amps /= np.linalg.norm(amps)  # guard round-off; the sum of |c_j|/α is 1 by construction
@@ -450,6 +452,34 @@ def lcu_block_encoding(A) -> BlockEncoding:
 def _row_sum_bound(a: np.ndarray) -> float:
     """max_i Σ_j |A_ij| ≥ ‖A‖₂ for symmetric A (Gershgorin: it bounds every |λ|)."""
     return float(np.max(np.sum(np.abs(a), axis=1)))
+
+
+def dilation_alpha(A, norm: float | None = None) -> float:
+    """The dilation's α: the row-sum bound max_i Σ_j |A_ij|, raised to ``norm`` (‖A‖, when known)
+    if round-off left it below. Cheap: no eigensolve and no unitary.
+
+    Parameters
+    ----------
+    A : array, shape (2^m, 2^m)
+    norm : float, optional
+        ‖A‖ (the largest |eigenvalue|).
+
+    Returns
+    -------
+    float
+    """
+    alpha = _row_sum_bound(np.asarray(A, dtype=float))
+    return alpha if norm is None else max(alpha, float(norm))
+
+
+def lcu_alpha(op: SparsePauliOp) -> float:
+    """The LCU's α = Σ_P |c_P| over a Pauli decomposition (`pauli_decomposition`)."""
+    return float(np.sum(np.abs(op.coeffs.real)))
+
+
+def lcu_block_qubits(n_terms: int) -> int:
+    """Block qubits of the LCU over ``n_terms`` Pauli strings: max(1, ⌈log₂ T⌉)."""
+    return max(1, (int(n_terms) - 1).bit_length())
 
 
 def dilation_block_encoding(A, alpha: float | None = None) -> BlockEncoding:
@@ -495,9 +525,8 @@ def dilation_block_encoding(A, alpha: float | None = None) -> BlockEncoding:
 
 
 def block_encoding(A, kind: Literal["lcu", "dilation"]) -> BlockEncoding:
-    """Dispatch on ``kind`` (the ``[circuit] encoding`` setting)."""
-    if kind == "lcu":
-        return lcu_block_encoding(A)
-    if kind == "dilation":
-        return dilation_block_encoding(A)
-    raise QgpError(f"unknown block encoding {kind!r}; choose 'lcu' or 'dilation'")
+    """The block encoding ``kind`` (the ``[circuit] encoding`` setting) of A, built by its entry of
+    the registry qgp.circuits.methods.encodings.ENCODINGS (`QgpError` naming the choices otherwise)."""
+    from qgp.circuits.methods.encodings import get_encoding
+
+    return get_encoding(kind).build(A)

@@ -20,9 +20,9 @@ so a statevector index is  i = s + 2^m·k + 2^(m+c)·f + 2^(m+c+1)·β  with s t
 
 Filtering: the floor is max(λ_lo − one clock bin, λ_lo/2) unless ``[circuit] filter_floor`` is
 set. Phase estimation leaks much of λ_min's weight into the bin just below it, so a floor at λ_lo
-itself would throw that weight away. One clock bin is 2π/(t·2^c) for ``exact``/``trotter``; for
-the walk, whose grid α·cos(2πk/2^c) is not uniform, it is the local spacing at λ_lo,
-(2π/2^c)·√(α² − λ_lo²).
+itself would throw that weight away. One clock bin is the method's local grid spacing at λ_lo
+(qgp.circuits.methods): 2π/(t·2^c) for ``exact``/``trotter``; for the walk, whose grid
+α·cos(2πk/2^c) is not uniform, (2π/2^c)·√(α² − λ_lo²).
 
 Two forms of the same operator: ``"gate"`` (uniformly controlled RY, gate-level oracles; what is
 counted and exported) and ``"simulation"`` (fused controlled powers — see qgp.circuits.phase_estimation —,
@@ -33,36 +33,32 @@ the simulation form is never transpiled).
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 from qiskit.circuit import QuantumCircuit, QuantumRegister
 from qiskit.circuit.library import DiagonalGate, UCRYGate
 
-from qgp.circuits.encoding import (
-    BLOCK,
-    SYSTEM,
-    BlockEncoding,
-    amplitude_encoding,
-    block_encoding,
-    check_matrix,
-)
-from qgp.errors import QgpError
+from qgp.circuits.encoding import BLOCK, SYSTEM, BlockEncoding, amplitude_encoding, check_matrix
+from qgp.circuits.methods import BUDGET_REFERENCE, get_method
 from qgp.circuits.phase_estimation import (
     CLOCK,
     Form,
     PhaseOracle,
     inverse_phase_estimation_circuit,
     phase_estimation_circuit,
-    phase_oracle,
 )
-from qgp.settings import CircuitSettings, Encoding, Evolution, Rotation, choices
+from qgp.errors import QgpError
+from qgp.settings import CircuitSettings, Rotation, choices
 
 __all__ = [
     "check_inversion_inputs",
     "FLAG",
     "InversionCircuit",
     "build_inversion",
+    "ClockModel",
+    "clock_model",
+    "budget_reference_model",
     "filter_floor",
     "rotation_constants",
     "rotation_angles",
@@ -86,8 +82,8 @@ class InversionCircuit:
 
     ``scale`` is C (smallest admitted λ̃). ``clock_eigenvalues[k]`` is λ̃ decoded from clock value k;
     ``admitted[k]`` whether it is rotated; ``flag_amplitudes[k]`` = g(λ̃_k) (0 if filtered).
-    ``effective_condition_number`` is the spread phase estimation must resolve: α/λ_lo for the
-    walk (its clock covers [−α, α]), λ_hi/λ_lo for ``exact``/``trotter``. ``n_oracle_calls``
+    ``effective_condition_number`` is the spread phase estimation must resolve (the method's:
+    α/λ_lo for the walk, whose clock covers [−α, α], λ_hi/λ_lo for ``exact``/``trotter``). ``n_oracle_calls``
     counts controlled applications of e^{iAt}, of one product-formula sequence for e^{iAt}, or
     of W, including the uncompute; ``n_pauli_terms`` the Pauli strings the oracle is built from
     (0 for ``exact`` and the dilation walk). ``oracle`` is the phase oracle the circuit was built
@@ -124,6 +120,13 @@ class InversionCircuit:
 
 
 def check_inversion_inputs(A, settings: CircuitSettings, rotation, bounds, form) -> tuple[np.ndarray, float, float]:
+    """Check A, the rotation, the form, the settings (by their method) and the bounds.
+
+    Returns
+    -------
+    (a, λ_lo, λ_hi) : (ndarray of shape (2^m, 2^m), float, float)
+        The checked symmetric matrix and the bounds as floats.
+    """
     a = check_matrix(A)
     if rotation not in choices(Rotation):
         raise QgpError(f"unknown rotation {rotation!r}; choose one of {choices(Rotation)}")
@@ -132,22 +135,7 @@ def check_inversion_inputs(A, settings: CircuitSettings, rotation, bounds, form)
     c = settings.clock_qubits
     if not isinstance(c, (int, np.integer)) or c < 1:
         raise QgpError(f"[circuit] clock_qubits must be an integer ≥ 1, got {c!r}")
-    if settings.evolution not in choices(Evolution):
-        raise QgpError(
-            f"unknown [circuit] evolution {settings.evolution!r}; choose one of {choices(Evolution)}"
-        )
-    if settings.evolution == "walk" and settings.encoding not in choices(Encoding):
-        raise QgpError(
-            f"the walk oracle needs a block encoding, got [circuit] encoding = {settings.encoding!r}; "
-            f"choose one of {choices(Encoding)}"
-        )
-    if settings.evolution == "trotter":
-        if not isinstance(settings.trotter_steps, (int, np.integer)) or settings.trotter_steps < 1:
-            raise QgpError(
-                f"[circuit] trotter_steps must be an integer ≥ 1, got {settings.trotter_steps!r}"
-            )
-        if settings.trotter_order not in (1, 2):
-            raise QgpError(f"[circuit] trotter_order must be 1 or 2, got {settings.trotter_order!r}")
+    get_method(settings.evolution).check(settings)
     try:
         lo, hi = (float(x) for x in bounds)
     except (TypeError, ValueError):
@@ -163,26 +151,29 @@ def check_inversion_inputs(A, settings: CircuitSettings, rotation, bounds, form)
     return a, lo, hi
 
 
-def filter_floor(oracle: PhaseOracle, lambda_lo: float, override: float | None = None) -> float:
-    """max(λ_lo − one clock bin, λ_lo/2), or ``override`` when given (see module docstring)."""
+def filter_floor(oracle, lambda_lo: float, override: float | None = None) -> float:
+    """max(λ_lo − one clock bin, λ_lo/2), or ``override`` when given (see module docstring).
+
+    ``oracle``: anything with ``kind`` (the method's name), ``clock_qubits``, ``evolution_time``
+    and ``alpha`` — a `PhaseOracle` or a `ClockModel`.
+    """
     if override is not None:
         return float(override)
-    n = 2**oracle.clock_qubits
-    if oracle.kind == "walk":
-        alpha = oracle.alpha
-        bin_width = (2 * np.pi / n) * np.sqrt(max(alpha**2 - lambda_lo**2, 0.0))
-    else:
-        bin_width = 2 * np.pi / (oracle.evolution_time * n)
+    bin_width = get_method(oracle.kind).bin_width(lambda_lo, oracle.clock_qubits, oracle.evolution_time, oracle.alpha)
     return max(lambda_lo - bin_width, lambda_lo / 2)
 
 
-def rotation_constants(oracle: PhaseOracle, lambda_lo: float, floor_override: float | None, rotation: Rotation):
+def rotation_constants(oracle, lambda_lo: float, floor_override: float | None, rotation: Rotation):
     """(λ̃ per clock value, floor, admitted, C, g per clock value) for ``oracle``'s clock grid.
 
-    Needs only the oracle's decoding (kind, clock qubits, t or α), not its gates: the error
-    budget's exact-oracle model uses it with a gate-free `PhaseOracle`.
+    Needs only the oracle's decoding (method, clock qubits, t or α), not its gates: ``oracle`` is a
+    `PhaseOracle` or a gate-free `ClockModel` (the error budget's reference model).
+
+    Returns
+    -------
+    (ndarray (2^c,), float, bool ndarray (2^c,), float, ndarray (2^c,))
     """
-    lam = oracle.clock_eigenvalues()
+    lam = get_method(oracle.kind).clock_eigenvalues(oracle.clock_qubits, oracle.evolution_time, oracle.alpha)
     floor = filter_floor(oracle, lambda_lo, floor_override)
     positive = lam > _ZERO_RTOL * float(np.max(np.abs(lam)))
     admitted = positive & (lam >= floor)
@@ -196,6 +187,59 @@ def rotation_constants(oracle: PhaseOracle, lambda_lo: float, floor_override: fl
     ratio[admitted] = scale / lam[admitted]
     amplitudes = ratio if rotation == "inverse" else np.sqrt(ratio)
     return lam, floor, admitted, scale, amplitudes
+
+
+@dataclass(frozen=True)
+class ClockModel:
+    """The constants of an inversion circuit without the circuit: what `build_inversion` would
+    report for ``settings`` (method ``kind``), ``rotation`` and the bounds — the clock grid, floor,
+    admitted values, C and g. Enough for `qgp.readout.filter_model` (``settings``, ``rotation``,
+    ``scale``, ``alpha``, ``evolution_time``, ``clock_eigenvalues``, ``admitted``)."""
+
+    kind: str
+    rotation: str
+    scale: float
+    alpha: float | None
+    evolution_time: float | None
+    clock_eigenvalues: np.ndarray
+    admitted: np.ndarray
+    flag_amplitudes: np.ndarray
+    floor: float
+    settings: CircuitSettings
+
+    @property
+    def clock_qubits(self) -> int:
+        return self.settings.clock_qubits
+
+
+def clock_model(settings: CircuitSettings, rotation: Rotation, bounds, alpha: float | None = None) -> ClockModel:
+    """The constants of ``build_inversion(A, settings, rotation, bounds)`` from the clock grid alone.
+
+    Parameters
+    ----------
+    settings : CircuitSettings
+    rotation : "inverse" or "inverse_sqrt"
+    bounds : (float, float)
+        A-priori eigenvalue bounds (λ_lo, λ_hi); t is derived from λ_hi unless set.
+    alpha : float, optional
+        The block encoding's α for methods with one (`qgp.circuits.methods.method_alpha`).
+
+    Returns
+    -------
+    ClockModel
+        Raises `QgpError` when no clock value is admitted (as `build_inversion` does).
+    """
+    method = get_method(settings.evolution)
+    t = method.evolution_time(settings, float(bounds[1]))
+    grid = ClockModel(method.name, rotation, 0.0, alpha, t, np.empty(0), np.empty(0), np.empty(0), 0.0, settings)
+    lam, floor, admitted, scale, amplitudes = rotation_constants(grid, float(bounds[0]), settings.filter_floor, rotation)
+    return replace(grid, scale=scale, clock_eigenvalues=lam, admitted=admitted, flag_amplitudes=amplitudes, floor=float(floor))
+
+
+def budget_reference_model(settings: CircuitSettings, rotation: Rotation, bounds) -> ClockModel:
+    """`clock_model` of the error budget's reference method (`qgp.circuits.methods.BUDGET_REFERENCE`)
+    with the other settings unchanged: no expm, no gates."""
+    return clock_model(replace(settings, evolution=BUDGET_REFERENCE), rotation, bounds)
 
 
 def rotation_angles(amplitudes: np.ndarray) -> np.ndarray:
@@ -260,9 +304,10 @@ def build_inversion(
                 f"the vector to prepare has {2**encode.num_qubits} entries but A is {2**m}×{2**m}; "
                 "pad it the same way as A"
             )
+    method = get_method(settings.evolution)
     if oracle is None:
-        be = block_encoding(a, settings.encoding) if settings.evolution == "walk" else None
-        oracle = phase_oracle(a, settings, hi, form=form, block_encoding=be)
+        be = method.block_encoding(a, settings)
+        oracle = method.oracle(a, settings, hi, form, be)
     elif (oracle.kind, oracle.clock_qubits, oracle.form) != (settings.evolution, settings.clock_qubits, form):
         raise QgpError(
             f"the oracle given ({oracle.kind}, {oracle.clock_qubits} clock qubits, {oracle.form} form) does not "
@@ -295,10 +340,7 @@ def build_inversion(
     if uncompute:
         qc.compose(inverse_phase_estimation_circuit(oracle), qubits=qpe_qubits, inplace=True, copy=False)
 
-    if settings.evolution == "walk":
-        kappa = oracle.alpha / lo
-    else:
-        kappa = hi / lo
+    kappa = method.effective_condition_number(lo, hi, oracle.alpha)
     return InversionCircuit(
         circuit=qc,
         rotation=rotation,

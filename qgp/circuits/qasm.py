@@ -17,7 +17,7 @@ qiskit's importer hours; as definitions it is < 1 MB. The writer is our own (qis
 drops global phases and took 3 min per 10^6 gates here); tests load every file back with
 `qiskit.qasm3.loads` and run it through ``transpile(…, AerSimulator())``.
 
-What is exported, and the catalogue of reference circuits: `qgp.circuits.export`,
+What is exported, and the catalogue of reference circuits: `qgp.reports.export`,
 `qgp.tools.catalogue`.
 """
 

@@ -38,21 +38,27 @@ is ≈ 10–30 s for both bases), or the circuit applies more than `MAX_ORACLE_C
 
 from __future__ import annotations
 
-import hashlib
-import math
-from collections import OrderedDict
 from collections.abc import Mapping
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
-from qiskit import transpile
-from qiskit.circuit import ControlledGate, Gate, Instruction, QuantumCircuit
 
-from qgp.circuits.encoding import BLOCK, SYSTEM, check_matrix, pauli_decomposition
-from qgp.errors import QgpError
+from qgp.circuits.decomposition import (  # re-exported: the decomposition is part of this module's API
+    OPTIMIZATION_LEVEL,
+    DecomposedCircuit,
+    LoweredPiece,
+    Piece,
+    Run,
+    _register_offsets,
+    decompose_circuit,
+    lower_piece,
+)
+from qgp.circuits.encoding import BLOCK, SYSTEM, check_matrix, pauli_decomposition, pauli_terms_bound
 from qgp.circuits.inversion import FLAG, InversionCircuit, build_inversion, check_inversion_inputs
-from qgp.circuits.phase_estimation import CLOCK, derived_evolution_time
+from qgp.circuits.methods import get_method
+from qgp.circuits.phase_estimation import CLOCK
+from qgp.errors import QgpError
 from qgp.settings import CircuitSettings, Rotation
 
 __all__ = [
@@ -80,8 +86,6 @@ __all__ = [
 
 #: The two fixed bases, by the key used in `CircuitResources.gate_counts` and in JSON.
 BASES: dict[str, tuple[str, ...]] = {"u_cx": ("u", "cx"), "rz_sx_x_cx": ("rz", "sx", "x", "cx")}
-#: The transpiler's optimisation level for every count (stated in every output).
-OPTIMIZATION_LEVEL = 0
 #: Largest estimated number of gates to synthesise, per basis, summed over the distinct pieces.
 SYNTHESIS_LIMIT = 500_000
 #: Largest number of controlled oracle copies (calls) a decomposed circuit may hold.
@@ -103,11 +107,6 @@ _LCU_COMPOSITION = (
     ", except with the lcu encoding: there a direct transpile may borrow idle qubits of other registers as "
     "ancillas for the multi-controlled Paulis and comes out lower, so these counts and depth are an upper bound"
 )
-
-# Lowered pieces, keyed by (content digest, basis): the inverse and inverse_sqrt circuits share
-# their phase-estimation pieces, and repeated resource calls in one process cost nothing.
-_CACHE: OrderedDict[tuple[str, tuple[str, ...]], LoweredPiece] = OrderedDict()
-_CACHE_SIZE = 64
 
 
 # ---------------------------------------------------------------------------------------------
@@ -143,17 +142,6 @@ class SizeEstimate:
         )
 
 
-def _dense_gates(q: int) -> int:
-    # Quantum Shannon decomposition of a generic q-qubit unitary: ≈ (23/48)·4^q CX plus ≈ 0.78·4^q
-    # single-qubit gates (measured here: 1.24·4^q at q = 8).
-    return int(1.25 * 4**q)
-
-
-def _n_pauli_terms_bound(m: int) -> int:
-    # Real symmetric A has only Pauli strings with an even number of Y: (4^m + 2^m)/2 of them.
-    return (4**m + 2**m) // 2
-
-
 # Pauli decompositions beyond this many system qubits cost O(4^m·m) time and memory: estimate with
 # the bound instead.
 _MAX_EXACT_TERM_COUNT_QUBITS = 10
@@ -164,7 +152,8 @@ def estimate_size(
 ) -> SizeEstimate:
     """Estimate the gate-level work for an inversion circuit on m system qubits (no circuit built).
 
-    Piece estimates (gates per basis): dense q-qubit unitary 1.25·4^q; LCU controlled walk
+    The oracle's share is its method's (``size_piece``, qgp.circuits.methods). Piece estimates (gates
+    per basis): dense q-qubit unitary 1.25·4^q; LCU controlled walk
     20·T·m·(k+1) for T terms over k block qubits (multi-controlled Paulis; 70 000 measured for the
     demo's T = 121, m = 4, k = 7); product-formula step T·(6m + 4), twice for order 2; multiplexed RY
     2·2^c; QFT c²; state preparation 4·2^m.
@@ -172,30 +161,10 @@ def estimate_size(
     c = int(settings.clock_qubits)
     n_pe = 2 if uncompute else 1
     calls = (2**c - 1) * n_pe
-    terms = n_pauli_terms if n_pauli_terms is not None else _n_pauli_terms_bound(m)
+    terms = n_pauli_terms if n_pauli_terms is not None else pauli_terms_bound(m)
     shared = 2 * 2**c + n_pe * c * c + (4 * 2**m if prepare else 0) + c * n_pe
-    if settings.evolution == "exact":
-        piece = _dense_gates(m + 1)
-        synth = n_pe * c * piece
-        expanded = synth
-        largest = f"{n_pe * c} controlled powers of e^(iAt), each a dense {m + 1}-qubit unitary (≈ {piece:,} gates)"
-    elif settings.evolution == "trotter":
-        steps = int(settings.trotter_steps)
-        piece = terms * (6 * m + 4) * (2 if settings.trotter_order == 2 else 1)
-        synth = n_pe * piece
-        expanded = calls * steps * piece
-        largest = f"one controlled product-formula step over {terms} Pauli terms (≈ {piece:,} gates)"
-    elif settings.encoding == "dilation":
-        piece = _dense_gates(m + 2)
-        synth = n_pe * piece
-        expanded = calls * piece
-        largest = f"one controlled walk step, a dense {m + 2}-qubit unitary (≈ {piece:,} gates)"
-    else:
-        k = max(1, math.ceil(math.log2(terms)))
-        piece = 20 * terms * m * (k + 1) + 4 * 2**k
-        synth = n_pe * piece
-        expanded = calls * piece
-        largest = f"one controlled LCU walk step over {terms} Pauli terms and {k} block qubits (≈ {piece:,} gates)"
+    piece = get_method(settings.evolution).size_piece(m, settings, terms=terms, n_pe=n_pe, calls=calls)
+    synth, expanded, largest = piece.synthesis_gates, piece.expanded_gates, piece.largest_piece
     return SizeEstimate(
         synthesis_gates=int(synth + shared),
         expanded_gates=int(expanded + shared),
@@ -218,7 +187,7 @@ _INFO_TERM_COUNT_QUBITS = 6
 
 def _estimate_for(a: np.ndarray, settings: CircuitSettings, *, uncompute: bool, prepare: bool) -> SizeEstimate:
     m = a.shape[0].bit_length() - 1
-    needed = settings.evolution == "trotter" or (settings.evolution == "walk" and settings.encoding == "lcu")
+    needed = get_method(settings.evolution).needs_pauli_terms(settings)
     terms = _count_terms(a) if needed or m <= _INFO_TERM_COUNT_QUBITS else None
     return estimate_size(m, settings, uncompute=uncompute, prepare=prepare, n_pauli_terms=terms)
 
@@ -226,265 +195,6 @@ def _estimate_for(a: np.ndarray, settings: CircuitSettings, *, uncompute: bool, 
 def size_estimate(A, settings: CircuitSettings, *, uncompute: bool, prepare: bool) -> SizeEstimate:
     """`estimate_size` for the matrix A (its own Pauli term count when m ≤ 10)."""
     return _estimate_for(check_matrix(A), settings, uncompute=uncompute, prepare=prepare)
-
-
-# ---------------------------------------------------------------------------------------------
-# Pieces, runs and their lowering to a basis
-
-
-def _param_bytes(p) -> bytes:
-    if isinstance(p, np.ndarray):
-        return np.ascontiguousarray(p, dtype=complex).tobytes() + repr(p.shape).encode()
-    if isinstance(p, (list, tuple)):
-        return b"[" + b",".join(_param_bytes(x) for x in p) + b"]"
-    if isinstance(p, (bool, int, float, complex, np.number)):
-        return repr(complex(p)).encode()
-    return repr(p).encode()  # ParameterExpression, strings: their text identifies them
-
-
-def _digest(op: Instruction) -> str:
-    """A content digest of an operation: equal digests mean the same operator.
-
-    Covers the type, name, size, parameters, control state and, for plain composite gates (from
-    ``to_gate``/``inverse``), the definition recursively with its global phase. Library gates
-    (UnitaryGate, StatePreparation, UCRYGate, QFTGate, standard gates) are identified by their
-    parameters, so their lazily synthesised definitions are never built here.
-    """
-    h = hashlib.sha1()
-    h.update(f"{type(op).__name__}|{op.name}|{op.num_qubits}|{op.num_clbits}|".encode())
-    for p in op.params:
-        h.update(_param_bytes(p))
-    if isinstance(op, ControlledGate):
-        h.update(f"|ctrl{op.num_ctrl_qubits}:{op.ctrl_state}|".encode())
-        h.update(_digest(op.base_gate).encode())
-    elif type(op) in (Gate, Instruction) and not op.params and op.definition is not None:
-        d = op.definition
-        h.update(f"|def:{float(d.global_phase)!r}|".encode())
-        for inst in d.data:
-            h.update(_digest(inst.operation).encode())
-            h.update(repr(tuple(d.find_bit(q).index for q in inst.qubits)).encode())
-    return h.hexdigest()
-
-
-def _readable_name(op: Instruction) -> str:
-    label = getattr(op, "label", None)
-    return str(label or op.name)
-
-
-@dataclass(frozen=True)
-class Piece:
-    """A distinct sub-circuit: its operation (on ``n_qubits`` qubits), a readable name, its digest."""
-
-    key: str
-    name: str
-    operation: Instruction = field(repr=False)
-    n_qubits: int
-
-
-@dataclass(frozen=True)
-class Run:
-    """``repeat`` consecutive applications of piece ``key`` on circuit qubits ``qubits``."""
-
-    key: str
-    qubits: tuple[int, ...]
-    repeat: int = 1
-
-
-@dataclass(frozen=True)
-class LoweredPiece:
-    """A piece transpiled to a basis: the circuit, its gate counts, depth and longest-path matrix.
-
-    ``paths[j, i]`` is the longest gate path from input qubit i to output qubit j (−inf if none,
-    0 on the diagonal of an idle qubit), so a piece applied after per-qubit depths d ends at
-    depths max_i(d_i + paths[j, i]).
-    """
-
-    circuit: QuantumCircuit = field(repr=False)
-    counts: Mapping[str, int]
-    depth: int
-    paths: np.ndarray = field(repr=False)
-
-    @property
-    def size(self) -> int:
-        return int(sum(self.counts.values()))
-
-
-def _longest_paths(qc: QuantumCircuit) -> np.ndarray:
-    """paths[j, i]: longest gate path from input qubit i to output qubit j (−inf if none).
-
-    Rows are Python lists and single-qubit gates are added lazily (``pending``): the loop runs
-    once per gate of a piece (up to ~10^5), where numpy's per-call overhead would dominate.
-    """
-    n = qc.num_qubits
-    index = {q: i for i, q in enumerate(qc.qubits)}
-    ninf = float("-inf")
-    rows = [[0.0 if i == j else ninf for i in range(n)] for j in range(n)]
-    pending = [0.0] * n
-    for inst in qc.data:
-        qs = [index[q] for q in inst.qubits]
-        if len(qs) == 1:
-            pending[qs[0]] += 1.0
-            continue
-        cols = [[x + pending[q] for x in rows[q]] for q in qs]
-        new = [max(col) + 1.0 for col in zip(*cols)]
-        for q in qs:
-            rows[q] = new
-            pending[q] = 0.0
-    for q in range(n):
-        rows[q] = [x + pending[q] for x in rows[q]]
-    return np.array(rows, dtype=float).reshape(n, n)
-
-
-def lower_piece(piece: Piece, basis: tuple[str, ...]) -> LoweredPiece:
-    """Transpile one piece to ``basis`` at `OPTIMIZATION_LEVEL` (cached by content and basis).
-
-    No coupling map is given, so no layout or routing pass runs: the result acts on the piece's
-    qubits in order, with no swap inserted and no final permutation (checked).
-    """
-    cache_key = (piece.key, tuple(basis))
-    hit = _CACHE.get(cache_key)
-    if hit is not None:
-        _CACHE.move_to_end(cache_key)
-        return hit
-    qc = QuantumCircuit(piece.n_qubits, name=piece.name)
-    qc.append(piece.operation, qc.qubits)
-    # qubits_initially_zero=False: the piece runs mid-circuit, so synthesis must not treat its idle
-    # qubits as clean |0⟩ ancillas (it did for the LCU's multi-controlled Paulis, and the
-    # exported walk was wrong).
-    out = transpile(
-        qc, basis_gates=list(basis), optimization_level=OPTIMIZATION_LEVEL, qubits_initially_zero=False
-    )
-    if out.layout is not None and (
-        list(out.layout.final_index_layout()) != list(range(piece.n_qubits))
-    ):
-        raise RuntimeError(f"transpiling {piece.name!r} permuted its qubits; the count would be wrong")
-    extra = set(out.count_ops()) - set(basis)
-    if extra:
-        raise RuntimeError(f"transpiling {piece.name!r} left gates {sorted(extra)} outside {list(basis)}")
-    paths = _longest_paths(out)
-    lowered = LoweredPiece(
-        circuit=out,
-        counts=dict(out.count_ops()),
-        depth=int(paths.max()) if paths.size else 0,  # every path starts at depth 0
-        paths=paths,
-    )
-    _CACHE[cache_key] = lowered
-    if len(_CACHE) > _CACHE_SIZE:
-        _CACHE.popitem(last=False)
-    return lowered
-
-
-@dataclass(frozen=True)
-class DecomposedCircuit:
-    """A circuit as an ordered list of runs over distinct pieces, with its registers.
-
-    ``registers`` are (name, size) in qubit order; ``global_phase`` is the phase not carried by
-    any piece (the source circuit's own and that of repetition wrappers).
-    """
-
-    registers: tuple[tuple[str, int], ...]
-    pieces: Mapping[str, Piece]
-    runs: tuple[Run, ...]
-    global_phase: float = 0.0
-
-    @property
-    def num_qubits(self) -> int:
-        return sum(size for _, size in self.registers)
-
-    def multiplicity(self) -> dict[str, int]:
-        """How many times each piece is applied in total."""
-        out: dict[str, int] = {}
-        for run in self.runs:
-            out[run.key] = out.get(run.key, 0) + run.repeat
-        return out
-
-    def lowered(self, basis: tuple[str, ...]) -> dict[str, LoweredPiece]:
-        return {key: lower_piece(piece, basis) for key, piece in self.pieces.items()}
-
-    def gate_counts(self, basis: tuple[str, ...]) -> dict[str, int]:
-        """Exact gate counts of the whole circuit in ``basis``: Σ multiplicity × piece counts."""
-        lowered = self.lowered(basis)
-        total: dict[str, int] = {}
-        for key, times in self.multiplicity().items():
-            for name, n in lowered[key].counts.items():
-                total[name] = total.get(name, 0) + times * int(n)
-        return {name: total[name] for name in sorted(total)}
-
-    def depth(self, basis: tuple[str, ...]) -> int:
-        """Exact depth of the whole circuit in ``basis``, composed from the pieces' path matrices."""
-        lowered = self.lowered(basis)
-        d = np.zeros(self.num_qubits)
-        for run in self.runs:
-            paths = lowered[run.key].paths
-            idx = np.asarray(run.qubits)
-            for _ in range(run.repeat):
-                d[idx] = np.max(d[idx][None, :] + paths, axis=1)
-        return int(d.max()) if d.size else 0
-
-def _repeated_base(op: Instruction) -> tuple[Instruction, tuple[int, ...], int] | None:
-    """(base, qubits, n) when ``op`` is a plain gate whose definition applies one gate n times.
-
-    That is how phase estimation writes controlled V^{2^j} for the walk and the product formula
-    (and qiskit writes their inverses). Only the first copy's operation is kept; the copies are
-    recognised by name and qubits, which the builder gives to one repeated object.
-    """
-    if type(op) not in (Gate, Instruction) or op.params:
-        return None
-    d = op.definition
-    if d is None or len(d.data) == 0 or float(d.global_phase) != 0.0:
-        return None
-    first = d.data[0]
-    if not all(
-        inst.operation.name == first.operation.name and inst.qubits == first.qubits for inst in d.data
-    ):
-        return None
-    qubits = tuple(d.find_bit(q).index for q in first.qubits)
-    return first.operation, qubits, len(d.data)
-
-
-def _merged(runs) -> tuple[Run, ...]:
-    """Consecutive runs of one piece on the same qubits as one run."""
-    out: list[Run] = []
-    for run in runs:
-        if out and out[-1].key == run.key and out[-1].qubits == run.qubits:
-            out[-1] = Run(run.key, run.qubits, out[-1].repeat + run.repeat)
-        else:
-            out.append(run)
-    return tuple(out)
-
-
-def decompose_circuit(qc: QuantumCircuit, *, open_repeats: bool = True) -> DecomposedCircuit:
-    """Split ``qc`` into runs of distinct pieces: its top-level instructions, with repetition
-    wrappers (a gate applying one gate n times) opened one level into one run of n when
-    ``open_repeats``."""
-    pieces: dict[str, Piece] = {}
-    runs: list[Run] = []
-    for inst in qc.data:
-        op = inst.operation
-        if op.num_clbits or op.name in ("measure", "reset", "barrier", "delay"):
-            raise QgpError(f"cannot decompose a circuit with a {op.name!r} instruction: it must be unitary")
-        qubits = tuple(qc.find_bit(q).index for q in inst.qubits)
-        rep = _repeated_base(op) if open_repeats else None
-        times = 1
-        if rep is not None:
-            op, inner, times = rep
-            qubits = tuple(qubits[i] for i in inner)
-        key = _digest(op)
-        if key not in pieces:
-            pieces[key] = Piece(key=key, name=_readable_name(op), operation=op, n_qubits=op.num_qubits)
-        runs.append(Run(key, qubits, times))
-    registers = tuple((r.name, r.size) for r in qc.qregs)
-    if [qc.find_bit(q).index for r in qc.qregs for q in r] != list(range(qc.num_qubits)):
-        raise QgpError("cannot decompose a circuit whose registers do not cover its qubits in order")
-    return DecomposedCircuit(registers=registers, pieces=pieces, runs=_merged(runs), global_phase=float(qc.global_phase))
-
-
-def _register_offsets(registers) -> dict[str, int]:
-    out, offset = {}, 0
-    for name, size in registers:
-        out[name] = offset
-        offset += size
-    return out
 
 
 # ---------------------------------------------------------------------------------------------
@@ -510,15 +220,6 @@ def _validated(a: np.ndarray, settings: CircuitSettings, rotation, bounds) -> tu
     """The checks `build_inversion` makes (one shared function), so both refuse the same inputs."""
     _, lo, hi = check_inversion_inputs(a, settings, rotation, bounds, "gate")
     return lo, hi
-
-
-def _evolution_time(settings: CircuitSettings, hi: float) -> float:
-    t = settings.evolution_time
-    if t is None:
-        return derived_evolution_time(hi, settings.clock_qubits)
-    if not np.isfinite(t) or t <= 0:
-        raise QgpError(f"[circuit] evolution_time must be a positive number, got {t!r}")
-    return float(t)
 
 
 def gate_inversion(
@@ -643,27 +344,15 @@ def _jsonable(x):
     return x
 
 
-def _oracle_call(settings: CircuitSettings) -> str:
-    if settings.evolution == "walk":
-        return f"controlled walk W = (2|0><0|_block - I)·U, U the {settings.encoding} block encoding of A/alpha"
-    if settings.evolution == "exact":
-        return "controlled e^{iAt} (dense unitary; the power 2^j is one dense gate standing for 2^j calls)"
-    return (
-        f"controlled product formula for e^{{iAt}} (order {settings.trotter_order}, "
-        f"{settings.trotter_steps} step(s) per call)"
-    )
-
-
 def _synthesis_note(settings: CircuitSettings) -> tuple[bool, str]:
-    if settings.evolution == "exact":
-        return True, _SYNTHESIS_NOTE.format(what="controlled powers of e^{iAt}")
-    if settings.evolution == "walk" and settings.encoding == "dilation":
-        return True, _SYNTHESIS_NOTE.format(what="dilation block encoding's controlled U")
+    what = get_method(settings.evolution).synthesis_dependent(settings)
+    if what is not None:
+        return True, _SYNTHESIS_NOTE.format(what=what)
     return False, "gate counts come from the algorithm's own gates (Pauli rotations, multi-controlled Paulis, QFT, multiplexed RY)"
 
 
 def _composition_note(settings: CircuitSettings) -> str:
-    lcu = settings.evolution == "walk" and settings.encoding == "lcu"
+    lcu = get_method(settings.evolution).composition_is_upper_bound(settings)
     return _COMPOSITION_NOTE.format(level=OPTIMIZATION_LEVEL, lcu=_LCU_COMPOSITION if lcu else "")
 
 
@@ -714,11 +403,13 @@ def _resources(settings, rotation, *, m, k, alpha, terms, t, uncomputed, prepare
     n_pe = 2 if uncomputed else 1
     calls = 2**c - 1
     synth, note = _synthesis_note(settings)
+    method = get_method(settings.evolution)
+    steps = method.steps_per_call(settings)
     return CircuitResources(
         qubits=_qubits(m, c, k),
         rotation=rotation,
         evolution=settings.evolution,
-        encoding=settings.encoding if settings.evolution == "walk" else None,
+        encoding=method.encoding(settings),
         clock_qubits=c,
         uncomputed=uncomputed,
         prepared=prepared,
@@ -727,11 +418,11 @@ def _resources(settings, rotation, *, m, k, alpha, terms, t, uncomputed, prepare
         n_block_qubits=k,
         n_oracle_calls=calls * n_pe,
         n_phase_estimations=n_pe,
-        oracle_call=_oracle_call(settings),
+        oracle_call=method.oracle_call(settings),
         evolution_time=t,
         total_evolution_time_per_phase_estimation=None if t is None else t * calls,
         total_evolution_time=None if t is None else t * calls * n_pe,
-        trotter_steps_total=settings.trotter_steps * calls * n_pe if settings.evolution == "trotter" else None,
+        trotter_steps_total=steps * calls * n_pe if steps is not None else None,
         optimization_level=OPTIMIZATION_LEVEL,
         gate_counts=gate_counts,
         composition=_composition_note(settings) if gate_counts is not None else None,
@@ -760,18 +451,7 @@ def _query_only(a: np.ndarray, settings: CircuitSettings, rotation, bounds, est:
     """Resources without building the circuit: every query-level count from A and the settings."""
     _, hi = _validated(a, settings, rotation, bounds)
     m = a.shape[0].bit_length() - 1
-    alpha, k, t, terms = None, 0, None, est.n_pauli_terms
-    if settings.evolution == "walk":
-        if settings.encoding == "lcu":
-            op = pauli_decomposition(a)
-            alpha, terms = float(np.sum(np.abs(op.coeffs.real))), len(op)
-            k = max(1, math.ceil(math.log2(terms)))
-        else:
-            # The dilation's α is the row-sum (Gershgorin) bound max_i Σ_j |A_ij| ≥ ‖A‖ (qgp.circuits.encoding),
-            # taken directly: its eigensolve and dense 2^(m+1) unitary are what a large A cannot afford.
-            alpha, k = float(np.max(np.sum(np.abs(a), axis=1))), 1
-    else:
-        t = _evolution_time(settings, hi)
+    alpha, k, t, terms = get_method(settings.evolution).query_counts(a, settings, hi, est.n_pauli_terms)
     return _resources(
         settings, rotation, m=m, k=k, alpha=alpha, terms=terms, t=t, uncomputed=uncompute, prepared=prepared,
         gate_counts=None, skipped=reason, estimate=est,

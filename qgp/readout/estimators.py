@@ -258,7 +258,7 @@ def operators_from_reference_run(
 
 
 #: What each kind of reference-register run is (the ``what`` of `CircuitOperators.simulation_runs`
-#: and of the simulation plan in qgp.reports.inspection).
+#: and of the simulation plan in qgp.readout.plan).
 ONE_RUN = "inversion with a reference register: B and M in one run (state saved before the rotation)"
 SPLIT_RUN = "inversion with a split reference register: columns of B and M per run"
 SPLIT_RUN_B = "inversion with a split reference register: columns of B per run"

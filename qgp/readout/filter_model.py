@@ -8,8 +8,11 @@ and uncomputation projects back onto clock 0, so for an eigenvector of A with ei
     inverse circuit:      post-selected amplitude  f(λ) = Σ_k |a_k(φ(λ))|² g(λ̃_k),  g = C/λ̃
     inverse_sqrt circuit: flag probability         h(λ) = Σ_k |a_k(φ(λ))|² g(λ̃_k)², g = √(C′/λ̃)
 
-(g = 0 on filtered clock values). The circuit therefore applies Ã⁻¹ = V diag(f/C) Vᵀ. This is exact
-for the exact oracle, φ = λt/2π; for the qubitization walk the two eigenphases ±arccos(λ/α)/2π
+(g = 0 on filtered clock values). The circuit therefore applies Ã⁻¹ = V diag(f/C) Vᵀ. φ(λ) and the
+clock grid λ̃_k are the inversion method's (qgp.circuits.methods: ``phase``, ``clock_eigenvalues``);
+the model is exact for the methods whose ``closed_form_model`` is set — the exact oracle,
+φ = λt/2π, and the qubitization walk, not the product formula (its Trotter error is not modelled).
+For the walk the two eigenphases ±arccos(λ/α)/2π
 each carry half of the weight and, because λ̃_k = α cos(2πk/2^c) is symmetric under k → 2^c − k,
 give the same sum, so φ = arccos(λ/α)/2π serves for both (Low & Chuang 2019).
 """
@@ -17,6 +20,8 @@ give the same sum, so φ = arccos(λ/α)/2π serves for both (Low & Chuang 2019)
 from __future__ import annotations
 
 import numpy as np
+
+from qgp.circuits.methods import get_method
 
 __all__ = ["qpe_weights", "clock_phases", "rotation_amplitudes", "filter_response", "model_operator"]
 
@@ -34,11 +39,12 @@ def qpe_weights(phase, clock_qubits: int) -> np.ndarray:
 
 
 def clock_phases(inv, eigenvalues) -> np.ndarray:
-    """Eigenphase φ(λ) in [0, 1) that phase estimation sees for each eigenvalue of A."""
-    lam = np.asarray(eigenvalues, dtype=float)
-    if inv.alpha is not None and inv.evolution_time is None:
-        return np.arccos(np.clip(lam / inv.alpha, -1.0, 1.0)) / (2 * np.pi)
-    return np.mod(lam * inv.evolution_time / (2 * np.pi), 1.0)
+    """Eigenphase φ(λ) in [0, 1) that phase estimation sees for each eigenvalue of A.
+
+    ``inv``: an `InversionCircuit` or `qgp.circuits.inversion.ClockModel` (its ``settings.evolution``
+    names the method; ``evolution_time``, ``alpha`` its parameters). Returns shape of ``eigenvalues``.
+    """
+    return get_method(inv.settings.evolution).phase(eigenvalues, inv.evolution_time, inv.alpha)
 
 
 def rotation_amplitudes(inv) -> np.ndarray:

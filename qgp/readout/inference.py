@@ -8,7 +8,7 @@ register split into as many runs as the memory cap requires; per-point: one full
 point), turns outcome probabilities — exact, or sampled with ``shots`` —
 into predictive means and latent variances (qgp.readout.estimators), and sets them beside the exact GP
 with an error budget that adds one imperfection at a time. Before any of it the memory guard
-checks every simulation the chosen strategy will make (`qgp.reports.inspection.simulation_plan`, the plan
+checks every simulation the chosen strategy will make (`qgp.readout.plan.simulation_plan`, the plan
 ``qgp inspect`` prints) and the result lists the runs made (``simulation_runs``).
 """
 
@@ -26,7 +26,6 @@ from dataclasses import dataclass, field, replace
 import numpy as np
 from qiskit import QuantumCircuit
 
-from qgp.errors import QgpError
 from qgp.readout.estimators import (
     CircuitOperators,
     hadamard_probabilities,
@@ -40,9 +39,10 @@ from qgp.readout.estimators import (
 )
 from qgp.readout.filter_model import model_operator
 from qgp.classical.gp import count_nonpositive, nlpd, rmse
-from qgp.reports.inspection import check_clock_qubits, simulation_plan
-from qgp.circuits.inversion import InversionCircuit, build_inversion, postselected_system_amplitudes, rotation_constants
-from qgp.circuits.phase_estimation import PhaseOracle, derived_evolution_time, phase_estimation_circuit, phase_oracle
+from qgp.readout.plan import check_clock_qubits, simulation_plan
+from qgp.circuits.inversion import InversionCircuit, budget_reference_model, build_inversion, postselected_system_amplitudes
+from qgp.circuits.methods import get_method
+from qgp.circuits.phase_estimation import phase_estimation_circuit, phase_oracle
 from qgp.classical.problem import Problem
 from qgp.settings import CircuitSettings, ReadoutSettings
 from qgp.readout.simulate import default_memory_cap, run_statevectors
@@ -141,7 +141,7 @@ class InferenceResult:
             "sparsity": d.sparsity,
             "noise_variance": p.noise_variance,
             "noise_source": p.noise_source,
-            "encoding": self.circuit.encoding if self.circuit.evolution == "walk" else None,
+            "encoding": get_method(self.circuit.evolution).encoding(self.circuit),
             "evolution": self.circuit.evolution,
             "shots": self.readout.shots,
             "seed": self.readout.seed,
@@ -208,7 +208,7 @@ def _rel_rmse(err: np.ndarray, ref: np.ndarray) -> float:
 def planned_qubits(problem: Problem, circuit: CircuitSettings, readout: ReadoutSettings) -> int:
     """Largest simulated width of ``readout.strategy``: the inversion plus a reference register
     (amortised; split when the one run does not fit) or a probe (per-point). See
-    `qgp.reports.inspection.simulation_plan`."""
+    `qgp.readout.plan.simulation_plan`."""
     return simulation_plan(problem, circuit, readout).widest()
 
 
@@ -405,39 +405,6 @@ def _with_preparation(inv: InversionCircuit, vector: np.ndarray) -> InversionCir
     return replace(inv, circuit=qc)
 
 
-@dataclass(frozen=True)
-class _ExactModel:
-    """The constants of the exact-oracle inversion the filter model needs, without its circuit."""
-
-    rotation: str
-    scale: float
-    alpha: None
-    evolution_time: float
-    clock_eigenvalues: np.ndarray
-    admitted: np.ndarray
-    settings: CircuitSettings
-
-
-def _exact_model(circuit: CircuitSettings, rotation: str, bounds) -> _ExactModel:
-    """What ``build_inversion(A, exact settings, rotation, bounds)`` would report, from the clock
-    grid alone (t from λ_hi unless set; same floor, admission and C): no expm, no gates."""
-    c = circuit.clock_qubits
-    t = circuit.evolution_time if circuit.evolution_time is not None else derived_evolution_time(bounds[1], c)
-    oracle = PhaseOracle(
-        kind="exact",
-        form=SIMULATED_FORM,
-        clock_qubits=c,
-        n_system_qubits=0,
-        n_block_qubits=0,
-        evolution_time=float(t),
-        alpha=None,
-        block_encoding=None,
-        powers=(),
-    )
-    lam, _, admitted, scale, _ = rotation_constants(oracle, float(bounds[0]), circuit.filter_floor, rotation)
-    return _ExactModel(rotation, scale, None, float(t), lam, admitted, circuit)
-
-
 def infer(
     problem: Problem,
     circuit: CircuitSettings = CircuitSettings(),
@@ -451,7 +418,7 @@ def infer(
     timings: dict[str, float] = {}
     cap = readout.memory_cap_bytes if readout.memory_cap_bytes is not None else default_memory_cap()
     # The memory guard, before any work that grows with n (the LCU's Pauli decomposition included):
-    # every simulation the chosen strategy makes, from the register sizes (qgp.reports.inspection).
+    # every simulation the chosen strategy makes, from the register sizes (qgp.readout.plan).
     check_clock_qubits(circuit)
     plan = simulation_plan(problem, circuit, readout, cap=cap)
     plan.require()
@@ -542,10 +509,11 @@ def infer(
         mean_out, var_out, mean_se, var_se = est.mean, est.variance, est.mean_se, est.variance_se
         failures = int(np.sum(N - n0 - n1))
 
-    # Error budget: exact GP → exact-oracle phase estimation and filtering (model) → chosen oracle → shots.
-    # The exact-oracle model needs only the clock grid's constants, not a circuit.
-    model_inv = _exact_model(circuit, "inverse", bounds) if circuit.evolution != "exact" else inv
-    model_sqrt = _exact_model(circuit, "inverse_sqrt", bounds) if circuit.evolution != "exact" else inv_sqrt
+    # Error budget: exact GP → the reference oracle's phase estimation and filtering (closed-form model,
+    # qgp.circuits.methods.BUDGET_REFERENCE) → chosen oracle → shots. The model needs only the clock
+    # grid's constants, not a circuit.
+    model_inv = budget_reference_model(circuit, "inverse", bounds)
+    model_sqrt = budget_reference_model(circuit, "inverse_sqrt", bounds)
     B_model = model_operator(model_inv, A)
     M_model = model_operator(model_sqrt, A)
     vm = B_model @ yhat
@@ -561,7 +529,7 @@ def infer(
     budget = _error_budget(stages)
 
     model_diff = None
-    if circuit.evolution in ("exact", "walk") and operators is not None:
+    if get_method(circuit.evolution).closed_form_model and operators is not None:
         own_B = model_operator(inv, A)
         own_M = model_operator(inv_sqrt, A)
         model_diff = max(_max_abs(own_B - operators.B), _max_abs(own_M - operators.M))

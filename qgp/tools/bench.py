@@ -516,7 +516,8 @@ def _max_abs_difference(a, b) -> float:
 
 def _sweep(s: BenchSettings, say: Progress) -> dict:
     from qgp.demo import demo_config_path
-    from qgp.sweeps.execute import load_sweep, run_sweep
+    from qgp.sweeps.execute import run_sweep
+    from qgp.sweeps.grid import load_sweep
 
     demo = demo_config_path().parent
     kappas = ", ".join(f"{k:.1f}" for k in np.linspace(10.0, 40.0, s.sweep_points))

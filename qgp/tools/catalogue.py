@@ -20,7 +20,8 @@ import numpy as np
 
 from qgp.circuits.encoding import normalised_amplitudes
 from qgp.circuits.inversion import build_inversion, postselected_system_amplitudes
-from qgp.circuits.export import (
+from qgp.circuits.methods import method_of
+from qgp.reports.export import (
     INVERSION_FILE,
     PROJECTORS,
     export_config,
@@ -183,9 +184,10 @@ def catalogue_document(entry: CatalogueEntry, gi: GateInversion, *, simulate: bo
 def _settings_document(settings: CircuitSettings) -> dict:
     """The [circuit] settings that apply to the chosen oracle."""
     doc = asdict(settings)
-    if settings.evolution != "walk":
+    method = method_of(settings)
+    if method.encoding(settings) is None:  # no block encoding
         doc.pop("encoding")
-    if settings.evolution != "trotter":
+    if method.steps_per_call(settings) is None:  # no product-formula steps
         doc.pop("trotter_steps")
         doc.pop("trotter_order")
     return doc

@@ -228,7 +228,7 @@ def _cmd_run(args) -> int:
 
 def _cmd_export(args) -> int:
     from qgp.config import load_config
-    from qgp.circuits.export import export_config
+    from qgp.reports.export import export_config
 
     paths = export_config(
         load_config(_resolve_config(args)), args.out, measure=args.measure, test_point=args.test_point, force=args.force
@@ -261,7 +261,9 @@ def _cmd_demo(args) -> int:
 
 
 def _cmd_sweep(args) -> int:
-    from qgp.sweeps.execute import format_status, load_sweep, run_sweep, store_status
+    from qgp.sweeps.execute import run_sweep
+    from qgp.sweeps.export import format_status, store_status
+    from qgp.sweeps.grid import load_sweep
 
     if args.status is not None:
         if args.sweep is not None or args.store is not None:
@@ -296,7 +298,7 @@ def _cmd_sweep(args) -> int:
 
 
 def _cmd_results(args) -> int:
-    from qgp.sweeps.execute import export_csv
+    from qgp.sweeps.export import export_csv
 
     n = export_csv(args.store, args.csv, test_points=args.test_points, force=args.force)
     print(f"wrote {n} row(s) to {args.csv}")

@@ -28,6 +28,7 @@ import numpy as np
 
 from qgp.circuits.encoding import BLOCK, MultiplexerGate, normalised_amplitudes
 from qgp.circuits.inversion import FLAG
+from qgp.circuits.methods import method_description
 from qgp.circuits.phase_estimation import CLOCK
 from qgp.circuits.qasm import FORMAT_NOTE, number_text, to_qasm3
 from qgp.circuits.resources import (
@@ -133,10 +134,9 @@ def header_lines(title: str, gi: GateInversion, file: str, *, measure: bool = Fa
     proj = ", ".join(f"{k}={v}" for k, v in PROJECTORS.get(file, PROJECTORS[INVERSION_FILE]).items())
     return [
         title,
-        f"rotation {inv.rotation}, {s.evolution} oracle"
-        + (f" ({s.encoding} encoding)" if s.evolution == "walk" else "")
+        f"rotation {inv.rotation}, {method_description(s)}"
         + f", {s.clock_qubits} clock qubits; C = {number_text(inv.scale)}",
-        f"read with {proj}" + ("; every register r measured into c_r" if measure else "") + "; written by qgp.circuits.qasm",
+        f"read with {proj}" + ("; every register r measured into c_r" if measure else "") + "; written by qgp (qgp export)",
     ]
 
 
@@ -204,7 +204,7 @@ def _hadamard_text(gi: GateInversion, b: np.ndarray, point: HadamardPoint, title
     header = [
         title,
         f"Hadamard test of test point {point.index}: probe=0 prepares yhat and applies C*A^-1, probe=1 prepares "
-        f"khat; {s.evolution} oracle" + (f" ({s.encoding} encoding)" if s.evolution == "walk" else "")
+        f"khat; {method_description(s)}"
         + f", {s.clock_qubits} clock qubits; C = {number_text(inv.scale)}",
         "read P0, P1 = P(probe=0, 1 and flag=1, clock=0, block=0); mean = prior_mean + y_norm*k_star_norm*(P0 - P1)/C "
         f"(numbers in {RESOURCES_FILE})" + ("; every register r measured into c_r" if measure else ""),
