@@ -1,0 +1,196 @@
+"""`qgp bench`, part 3: seconds per inversion against qubits, each case in a child process.
+
+Each case builds and simulates one inversion (the demo's n = 16 problem, the exact oracle, the clock
+register grown) in its own process, which reports its peak resident memory; the machine's memory-copy
+bandwidth is measured in the same run. A tool (qgp.tools): nothing in the library imports it.
+
+    python -m qgp.tools.bench_scaling --case JSON      (one case; what `qgp bench` runs per case)
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import resource
+import subprocess
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+if TYPE_CHECKING:
+    from qgp.tools.bench import BenchSettings
+
+__all__ = ["child_env", "run_scaling"]
+
+Progress = Callable[[str], None]
+
+# -- 3. simulation scaling (child processes) -------------------------------------------------------
+
+
+def _copy_bandwidth(nbytes: int) -> float:
+    """Bytes per second moved by numpy copying a large array (read + write counted), best of 5."""
+    n = max(1, nbytes // 16)
+    a = np.ones(n, dtype=complex)
+    b = np.empty_like(a)
+    best = math.inf
+    for _ in range(5):
+        t0 = time.perf_counter()
+        np.copyto(b, a)
+        best = min(best, time.perf_counter() - t0)
+    return 2 * a.nbytes / best
+
+
+def _run_case(case: dict) -> dict:
+    """One scaling case, in this (child) process: build and simulate one inversion."""
+    from qgp.tools.bench import _bench_problem, _exact_circuit  # the same problem as the rest of the bench
+
+    from qgp.readout.inference import _unit_inputs
+    from qgp.circuits.inversion import build_inversion
+    from qgp.readout.simulate import simulator
+    from qgp.classical.system import eigenvalue_bounds
+
+    problem = _bench_problem(2)
+    circuit = _exact_circuit(int(case["clock_qubits"]))
+    A = problem.A_padded
+    bounds = eigenvalue_bounds(A, problem.noise_variance)
+    yhat = _unit_inputs(problem)[0]
+    from qiskit import QuantumCircuit
+    from qiskit_aer.library import SaveStatevector
+
+    warm = QuantumCircuit(1)  # the simulator's one-off start-up is not the case's cost
+    warm.append(SaveStatevector(1), [0])
+    simulator().run(warm).result()
+    t0 = time.perf_counter()
+    inv = build_inversion(A, circuit, "inverse", bounds, prepare=yhat, form="simulation")
+    t1 = time.perf_counter()
+    qc = inv.circuit.copy_empty_like()
+    qc.global_phase = 0.0  # compose adds the circuit's phase again
+    qc.compose(inv.circuit, inplace=True, copy=False)
+    qc.append(SaveStatevector(qc.num_qubits), qc.qubits)
+    result = simulator().run(qc).result()
+    sv = result.get_statevector(0)
+    t2 = time.perf_counter()
+    del sv
+    return {
+        "qubits": inv.circuit.num_qubits,
+        "clock_qubits": circuit.clock_qubits,
+        "instructions": len(inv.circuit.data),
+        "build_seconds": t1 - t0,
+        "simulate_seconds": t2 - t1,
+        "aer_seconds": float(result.results[0].time_taken),
+        "peak_memory_mb": _peak_rss_mb(),
+        "statevector_mb": 16 * 2 ** inv.circuit.num_qubits / 2**20,
+    }
+
+
+def _peak_rss_mb() -> float:
+    """This process's peak resident memory: VmHWM from /proc (reset at exec, unlike ru_maxrss,
+    which a child started by fork + exec inherits from its parent), else ru_maxrss."""
+    try:
+        with open("/proc/self/status") as fh:
+            for line in fh:
+                if line.startswith("VmHWM:"):
+                    return int(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # Linux: kilobytes
+
+
+def child_env() -> dict:
+    """This environment with the folder holding this qgp first on PYTHONPATH (so a child process
+    imports the same qgp, installed or not)."""
+    env = dict(os.environ)
+    root = str(Path(__file__).resolve().parents[1])
+    env["PYTHONPATH"] = root + (os.pathsep + env["PYTHONPATH"] if env.get("PYTHONPATH") else "")
+    return env
+
+
+def _case_in_child(case: dict, timeout: float) -> dict:
+    cmd = [sys.executable, "-m", "qgp.tools.bench_scaling", "--case", json.dumps(case)]
+    try:
+        done = subprocess.run(cmd, capture_output=True, text=True, timeout=timeout, env=child_env())
+    except subprocess.TimeoutExpired:
+        return {"clock_qubits": case["clock_qubits"], "timed_out": True, "timeout_seconds": timeout}
+    if done.returncode != 0:
+        tail = (done.stderr or "").strip().splitlines()[-1:] or ["no output"]
+        return {"clock_qubits": case["clock_qubits"], "failed": tail[0]}
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def run_scaling(s: "BenchSettings", say: Progress) -> dict:
+    from qgp.readout.simulate import default_memory_cap, statevector_bytes
+
+    cap = default_memory_cap()
+    guard_qubits = int(math.floor(math.log2(cap / 16)))
+    say("measuring the memory-copy bandwidth")
+    bandwidth = _copy_bandwidth(min(1 << 29, cap // 4))
+    system_qubits, flag = 4, 1
+    sizes = []
+    q = s.scaling_start
+    top = guard_qubits if s.scaling_cap is None else min(guard_qubits, s.scaling_cap)
+    while q <= top:
+        sizes.append(q)
+        q += 2 if q < 20 else 1
+    cases, stop = [], None
+    for q in sizes:
+        if statevector_bytes(q) > cap:
+            stop = f"the memory guard refuses {q} qubits"
+            break
+        c = q - system_qubits - flag
+        say(f"scaling: one inversion on {q} qubits ({c} clock qubits) in a child process")
+        r = _case_in_child({"clock_qubits": c}, s.case_timeout_seconds)
+        if "qubits" in r:
+            layer_bytes = 2 * 16 * 2 ** r["qubits"]  # one pass over the statevector: read + write
+            floor = r["instructions"] * layer_bytes / bandwidth
+            r["bytes_per_layer"] = layer_bytes
+            r["bandwidth_floor_seconds"] = floor
+            r["fraction_of_bandwidth_limit"] = floor / r["aer_seconds"] if r["aer_seconds"] > 0 else None
+        cases.append(r)
+        if r.get("timed_out") or r.get("failed"):
+            stop = f"the case on {q} qubits " + ("timed out" if r.get("timed_out") else f"failed: {r['failed']}")
+            break
+        if r["simulate_seconds"] >= s.scaling_limit_seconds:
+            stop = f"{q} qubits took {r['simulate_seconds']:.1f} s ≥ {s.scaling_limit_seconds:g} s"
+            break
+    else:
+        if s.scaling_cap is not None and s.scaling_cap < guard_qubits:
+            stop = f"{s.name} mode caps the scaling at {s.scaling_cap} qubits (the memory guard allows {guard_qubits})"
+        else:
+            stop = f"the memory guard allows at most {guard_qubits} qubits"
+    ok = [r for r in cases if "qubits" in r and r["simulate_seconds"] < 60.0]
+    largest = max(ok, key=lambda r: r["qubits"]) if ok else None
+    return {
+        "copy_bandwidth_gb_per_s": bandwidth / 1e9,
+        "memory_cap_gib": cap / 2**30,
+        "memory_guard_qubits": guard_qubits,
+        "cases": cases,
+        "stopped_because": stop,
+        "largest": largest,
+        "definition": "each case: the n = 16 inversion (state preparation of ŷ, exact-oracle phase estimation, "
+        "rotation, uncompute) in the simulation form, grown by clock qubits; simulate_seconds is the simulator job "
+        "(submit to statevector in hand), aer_seconds Aer's own time. A gate layer is one instruction of the "
+        "circuit, which reads and writes the whole statevector once: bytes_per_layer = 2·16·2^q. "
+        "bandwidth_floor_seconds = instructions × bytes_per_layer / copy bandwidth (numpy copying a large array, "
+        "read + write counted, same run), the time if every instruction ran at memory-copy speed; "
+        "fraction_of_bandwidth_limit = bandwidth_floor_seconds / aer_seconds (1 = at the limit; Aer's gate fusion "
+        "can merge instructions into one pass, which could push it above 1)",
+    }
+
+
+
+def _case_main(argv: list[str]) -> int:
+    """``python -m qgp.tools.bench_scaling --case JSON``: one scaling case, its result as one JSON line."""
+    if len(argv) != 2 or argv[0] != "--case":
+        print("usage: python -m qgp.tools.bench_scaling --case JSON (used by qgp bench)", file=sys.stderr)
+        return 2
+    print(json.dumps(_run_case(json.loads(argv[1]))))
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(_case_main(sys.argv[1:]))
