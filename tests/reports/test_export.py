@@ -32,7 +32,7 @@ CIRCUITS = {
     "walk-dilation": 'evolution = "walk"\nencoding = "dilation"',
     "walk-lcu": 'evolution = "walk"\nencoding = "lcu"',
 }
-CATALOGUE_DIR = Path(__file__).resolve().parents[1] / "circuits"
+CATALOGUE_DIR = Path(__file__).resolve().parents[2] / "circuits"
 
 # Tolerance of issue 3 for a file against the in-memory circuit; what the file can lose is the
 # synthesis error of each dense unitary (~1e-14) and the 17-digit text of each angle.
