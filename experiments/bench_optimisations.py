@@ -25,7 +25,8 @@ import scipy.linalg
 
 from qgp.tools.bench import _bench_problem
 from qgp.readout.estimators import operators_from_reference_run, sample_hadamard
-from qgp.readout.inference import _cached_pair, _unit_inputs, _with_preparation, clear_caches, infer
+from qgp.readout.builds import cached_pair, with_preparation
+from qgp.readout.inference import clear_caches, infer, unit_inputs
 from qgp.circuits.inversion import build_inversion, statevector_array
 from qgp.circuits.phase_estimation import _squares
 from qgp.settings import CircuitSettings, ReadoutSettings
@@ -90,7 +91,7 @@ def fused_form(problem, settings: CircuitSettings, repeats: int = 3) -> dict:
     against the simulation form (fused controlled powers, native multiplexers)."""
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)
-    yhat = _unit_inputs(problem)[0]
+    yhat = unit_inputs(problem)[0]
 
     def run(form):
         inv = build_inversion(A, settings, "inverse", bounds, prepare=yhat, form=form)
@@ -138,7 +139,7 @@ def build_cache(problem, c: int = 8, repeats: int = 3) -> dict:
 def shared_prefix(problem, c: int = 8, repeats: int = 3) -> dict:
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)
-    inv, inv_sqrt = _cached_pair(A, CircuitSettings(clock_qubits=c, evolution="exact"), bounds)
+    inv, inv_sqrt = cached_pair(A, CircuitSettings(clock_qubits=c, evolution="exact"), bounds)
     tp, tf, rp, rf = _alternate(
         lambda: operators_from_reference_run(inv, inv_sqrt, share_prefix=False),
         lambda: operators_from_reference_run(inv, inv_sqrt, share_prefix=True),
@@ -160,8 +161,8 @@ def batching(problem, c: int = 8, repeats: int = 3) -> dict:
     A = problem.A_padded
     n = A.shape[0]
     bounds = eigenvalue_bounds(A, problem.noise_variance)
-    inv, inv_sqrt = _cached_pair(A, CircuitSettings(clock_qubits=c, evolution="exact"), bounds)
-    basis = [_with_preparation(inv, np.eye(n)[j]) for j in range(n)]
+    inv, inv_sqrt = cached_pair(A, CircuitSettings(clock_qubits=c, evolution="exact"), bounds)
+    basis = [with_preparation(inv, np.eye(n)[j]) for j in range(n)]
 
     def separate():
         cols = []
@@ -278,7 +279,7 @@ def _child(c: int, threads: int) -> None:
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)
     inv = build_inversion(
-        A, CircuitSettings(clock_qubits=c, evolution="exact"), "inverse", bounds, prepare=_unit_inputs(problem)[0],
+        A, CircuitSettings(clock_qubits=c, evolution="exact"), "inverse", bounds, prepare=unit_inputs(problem)[0],
         form="simulation",
     )
     qc = prepare_for_simulator([inv.circuit])[0].copy()

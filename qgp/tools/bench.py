@@ -131,7 +131,7 @@ def _naive_point(problem, circuit, j: int) -> tuple[float, float, float]:
     from qiskit import transpile
 
     from qgp.readout.estimators import _hadamard_outcomes, hadamard_test_circuit, variance_circuit
-    from qgp.readout.inference import SIMULATED_FORM, _unit_inputs
+    from qgp.readout.inference import SIMULATED_FORM, unit_inputs
     from qgp.circuits.inversion import build_inversion, statevector_array
     from qgp.circuits.phase_estimation import phase_estimation_circuit, phase_oracle
     from qgp.readout.simulate import simulator
@@ -139,7 +139,7 @@ def _naive_point(problem, circuit, j: int) -> tuple[float, float, float]:
 
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)
-    yhat, _, khat, _ = _unit_inputs(problem)
+    yhat, _, khat, _ = unit_inputs(problem)
     inv = build_inversion(A, circuit, "inverse", bounds, form=SIMULATED_FORM)
     inv_sqrt = build_inversion(A, circuit, "inverse_sqrt", bounds, form=SIMULATED_FORM)
     qpe = phase_estimation_circuit(phase_oracle(A, circuit, bounds[1], form=SIMULATED_FORM))

@@ -49,7 +49,7 @@ def _run_case(case: dict) -> dict:
     """One scaling case, in this (child) process: build and simulate one inversion."""
     from qgp.tools.bench import _bench_problem, _exact_circuit  # the same problem as the rest of the bench
 
-    from qgp.readout.inference import _unit_inputs
+    from qgp.readout.inference import unit_inputs
     from qgp.circuits.inversion import build_inversion
     from qgp.readout.simulate import simulator
     from qgp.classical.system import eigenvalue_bounds
@@ -58,7 +58,7 @@ def _run_case(case: dict) -> dict:
     circuit = _exact_circuit(int(case["clock_qubits"]))
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)
-    yhat = _unit_inputs(problem)[0]
+    yhat = unit_inputs(problem)[0]
     from qiskit import QuantumCircuit
     from qiskit_aer.library import SaveStatevector
 

@@ -34,7 +34,7 @@ from qgp.readout.estimators import (
     variance_circuit,
 )
 from qgp.readout.filter_model import model_operator
-from qgp.readout.inference import SIMULATED_FORM, _unit_inputs, clear_caches, infer
+from qgp.readout.inference import SIMULATED_FORM, clear_caches, infer, unit_inputs as _unit_inputs
 from qgp.circuits.inversion import FLAG, build_inversion, flag_rotation_circuit, rotation_angles, statevector_array
 from qgp.classical.kernels import RBF
 from qgp.classical.problem import build_problem

@@ -32,7 +32,8 @@ from qgp.readout.estimators import (
     reference_circuit,
     variance_circuit,
 )
-from qgp.readout.inference import _cached_pair, _qpe_body, _unit_inputs, clear_caches, infer, planned_qubits
+from qgp.readout.builds import cached_pair as _cached_pair, qpe_body as _qpe_body
+from qgp.readout.inference import clear_caches, infer, planned_qubits, unit_inputs as _unit_inputs
 from qgp.reports.inspection import inspect_problem, lcu_block_qubits, simulation_plan
 from qgp.circuits.inversion import build_inversion
 from qgp.classical.kernels import RBF
