@@ -34,7 +34,7 @@ KernelFamily = Literal["rbf", "matern32", "matern52", "wendland"]
 # The inversion methods and block encodings are registries in the circuits stage
 # (qgp.circuits.methods.METHODS, qgp.circuits.methods.encodings.ENCODINGS). `qgp.config` sits before
 # that stage and may not import it, so it validates against these declarations, which
-# tests/test_methods.py checks list exactly the registries' names (and uses_block_encoding).
+# tests/circuits/test_methods.py checks list exactly the registries' names (and uses_block_encoding).
 Encoding = Literal["lcu", "dilation"]
 Evolution = Literal["exact", "trotter", "walk"]
 

@@ -18,7 +18,7 @@ into one run of 2^j. Each distinct piece is transpiled once; gate counts are the
 the runs, and the depth is exact too, composed in max-plus algebra from each piece's longest-path
 matrix (entry [j, i] = longest gate path from input qubit i to output qubit j). At optimisation
 level 0 nothing is optimised across gates, so these are the counts and depth of a direct
-``transpile`` of the whole circuit (tests/test_resources.py checks this on small cases) — except
+``transpile`` of the whole circuit (tests/circuits/test_resources.py checks this on small cases) — except
 with the ``lcu`` encoding, where a direct transpile may borrow idle qubits of other registers as
 ancillas for the multi-controlled Paulis and comes out lower (the composed counts are then an
 upper bound). They are exactly the gates of the file `qgp.circuits.qasm` writes. Pieces are transpiled

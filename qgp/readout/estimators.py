@@ -214,12 +214,12 @@ def operators_from_reference_run(
     rotation, and ``inverse_sqrt``'s rotation RY(θ_k) on the fresh flag puts amplitude
     sin(θ_k/2)·ψ on flag = 1 — its E read from ψ without simulating the second circuit. With
     ``share_prefix=False`` (or circuits that do not share) both reference circuits run, as two
-    experiments of one job; the two give the same numbers (tests/test_speed_paths.py).
+    experiments of one job; the two give the same numbers (tests/readout/test_speed_paths.py).
 
     ``reference_qubits`` = r′ (0 ≤ r′ ≤ m) splits the reference register instead: 2^(m − r′) runs
     of 2^r′ input columns each (`_split_reference_operators`), one statevector at a time and no
     saved state — for when the one-run simulation does not fit in memory; the same numbers to
-    round-off (tests/test_inspection.py).
+    round-off (tests/reports/test_inspection.py).
     """
     if reference_qubits is not None:
         return _split_reference_operators(

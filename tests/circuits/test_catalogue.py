@@ -47,7 +47,7 @@ def _rebuilt(name: str):
     """The entry rebuilt in memory: the gate form where it is small, else the simulation form.
 
     The demo's gate form at c = 8 takes ~5 s to build (qiskit inverts 255 walk copies one by
-    one); its simulation form is the same operator (tests/test_inversion.py checks the two).
+    one); its simulation form is the same operator (tests/circuits/test_inversion.py checks the two).
     """
     entry = catalogue_entry(name)
     form = "simulation" if name == "demo_walk_dilation" else "gate"
@@ -251,7 +251,7 @@ def _check_users_way(name: str) -> None:
 
 
 # The user's path re-synthesises two-qubit blocks at the default optimisation level (~1e-15 each):
-# 1e-8, as for fresh exports (tests/test_export.py).
+# 1e-8, as for fresh exports (tests/reports/test_export.py).
 AER_TOL = 1e-8
 
 

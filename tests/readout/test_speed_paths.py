@@ -5,7 +5,7 @@ simulator independent of Aer and of every shortcut under test (multiplexers, nat
 the shared phase-estimation prefix, caches, the exact-oracle model without a circuit).
 
 That a sweep stores the same numbers with 1 and 2 workers is checked in
-tests/test_sweeps.py::test_one_and_two_workers_store_the_same_numbers (not repeated here).
+tests/sweeps/test_sweeps.py::test_one_and_two_workers_store_the_same_numbers (not repeated here).
 """
 
 from __future__ import annotations

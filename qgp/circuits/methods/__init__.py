@@ -10,7 +10,7 @@ branches on a method's name. The walk's block encodings are a registry of their 
 (qgp.circuits.methods.encodings).
 
 Adding a method: one module defining an `InversionMethod` subclass, one line in `METHODS` below
-(and the name in `qgp.settings.Evolution` for typing); tests/test_methods.py picks it up.
+(and the name in `qgp.settings.Evolution` for typing); tests/circuits/test_methods.py picks it up.
 
 Public functions (stable; the figures, sweeps and tools call these):
 

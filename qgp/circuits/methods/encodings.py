@@ -201,7 +201,7 @@ class _WalkPieces:
     (``prepare``: (gate, block qubit indices) in order); SELECT, controlled, is one multiplexer
     over [block…, control] with targets ``system`` (identity for control = 0 and unused block
     values); the controlled reflection is a diagonal over [block…, control]. Same operator as
-    `controlled_walk` (tests/test_speed_paths.py).
+    `controlled_walk` (tests/readout/test_speed_paths.py).
     """
 
     n_system_qubits: int

@@ -67,7 +67,7 @@ def _model_inversion(lam_bounds, alpha, settings, rotation: str):
     The registry's `clock_model` (qgp.circuits.methods): the method's clock grid (t derived from
     λ_hi unless set, or α), floor max(λ_lo − one bin, λ_lo/2), admitted = positive and ≥ floor,
     C = smallest admitted λ̃; None where no clock value is admitted at this clock size.
-    tests/test_sweep_figures.py checks it against build_inversion.
+    tests/sweeps/test_sweep_figures.py checks it against build_inversion.
     """
     from qgp.circuits.methods import clock_model
 
