@@ -27,6 +27,7 @@ _CSV_SKIP = {
     "prior_mean_note",
     "variance_kind",
     "config_file",
+    "provenance",
     "composition",
     "oracle_call",
     "stages",

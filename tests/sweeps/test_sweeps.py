@@ -485,6 +485,8 @@ def test_status_and_results_export_tidy_tables(four_points, tmp_path, capsys):
     header = list(rows[0])
     assert header[:4] == ["grid_index", "circuit.clock_qubits", "noise.target_condition", "readout.shots"]
     assert {"mean_max_abs_error", "condition_number", "total_qubits", "test_rmse.exact"} <= set(header)
+    # Text records of the summary (what produced each number) stay in summary_json, not in the table.
+    assert not [h for h in header if h.startswith(("provenance.", "caveat", "config."))], header
     with open_store(one) as store:
         stored = store.points()
         assert [int(r["grid_index"]) for r in rows] == [p.grid_index for p in stored]
