@@ -152,14 +152,14 @@ def check_outputs(
     out = Path(out)
     if out.exists() and not out.is_dir():
         raise QgpError(f"{option} {out} is a file, not a folder; name a folder (it is created if missing)")
-    targets = [out / name for name in names]
-    for target in targets:
+    names = list(names)
+    for name in names:
         for source in inputs:
-            if same_file(target, source):
+            if same_file(out / name, source):
                 raise QgpError(f"{option} {out} would overwrite the input file {source}; choose another folder")
-    existing = [t for t in targets if t.exists()]
+    existing = [name for name in names if (out / name).exists()]
     if existing and not force:
-        shown = ", ".join(t.name + ("/" if t.is_dir() else "") for t in existing[:6])
+        shown = ", ".join(name + ("/" if (out / name).is_dir() else "") for name in existing[:6])
         more = f" and {len(existing) - 6} more" if len(existing) > 6 else ""
         raise QgpError(
             f"{option} {out} already holds {shown}{more}; choose another folder or pass --force to overwrite"
