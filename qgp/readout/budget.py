@@ -6,18 +6,25 @@ import math
 
 import numpy as np
 
-__all__ = ["budget_stage", "error_budget", "shots_needed"]
+__all__ = ["max_abs", "rel_rmse", "budget_stage", "error_budget", "shots_needed"]
 
 
-def _max_abs(x: np.ndarray) -> float:
+def max_abs(x: np.ndarray) -> float:
+    """Largest absolute entry of ``x``."""
     return float(np.max(np.abs(x)))
+
+
+def rel_rmse(err: np.ndarray, ref: np.ndarray) -> float:
+    """RMSE relative to the RMS of the reference (the centred mean: what the circuit estimates)."""
+    scale = math.sqrt(float(np.mean(ref**2)))
+    return math.sqrt(float(np.mean(err**2))) / scale if scale > 0 else math.inf
 
 
 def budget_stage(mean, var, mean_ref, var_ref) -> dict:
     return {
-        "mean_max_abs_error": _max_abs(mean - mean_ref),
+        "mean_max_abs_error": max_abs(mean - mean_ref),
         "mean_rmse": math.sqrt(float(np.mean((mean - mean_ref) ** 2))),
-        "variance_max_abs_error": _max_abs(var - var_ref),
+        "variance_max_abs_error": max_abs(var - var_ref),
         "variance_rmse": math.sqrt(float(np.mean((var - var_ref) ** 2))),
     }
 
@@ -46,7 +53,7 @@ def shots_needed(problem, p0, p1, pf, y_norm, k_norms, inv, inv_sqrt, mean_exact
     2002, Thm 12: error ≈ π√(p(1−p))/M after M oracle calls) needs M ≈ scale·π·Σ√(p(1−p))/ε
     (~1/ε) — an estimate, not a simulation.
     """
-    eps_mean = 0.01 * _max_abs(mean_exact - problem.y_offset)
+    eps_mean = 0.01 * max_abs(mean_exact - problem.y_offset)
     scale_m = y_norm * k_norms / inv.scale
     d = p0 - p1
     var_d = np.clip(p0 + p1 - d**2, 0.0, None)

@@ -27,7 +27,7 @@ from qgp.circuits.methods import get_method
 from qgp.classical.gp import count_nonpositive, nlpd, rmse
 from qgp.classical.problem import Problem
 from qgp.classical.system import eigenvalue_bounds
-from qgp.readout.budget import budget_stage, error_budget, shots_needed
+from qgp.readout.budget import budget_stage, error_budget, max_abs, rel_rmse, shots_needed
 from qgp.readout.builds import SIMULATED_FORM, cached_pair, clear_caches
 from qgp.readout.estimators import CircuitOperators, hadamard_probabilities, variance_probabilities
 from qgp.readout.filter_model import model_operator
@@ -139,11 +139,11 @@ class InferenceResult:
                 else "no prior mean was subtracted ([data] center = false)"
             ),
             "variance_kind": "latent (of f); add noise_variance for the predictive variance of y",
-            "mean_max_abs_error": _max_abs(self.mean_quantum - self.mean_exact),
-            "variance_max_abs_error": _max_abs(self.variance_quantum - self.variance_exact),
-            "variance_hadamard_max_abs_error": _max_abs(self.variance_quantum_hadamard - self.variance_exact),
-            "mean_rel_rmse": _rel_rmse(self.mean_quantum - self.mean_exact, self.mean_exact - p.y_offset),
-            "variance_rel_rmse": _rel_rmse(self.variance_quantum - self.variance_exact, self.variance_exact),
+            "mean_max_abs_error": max_abs(self.mean_quantum - self.mean_exact),
+            "variance_max_abs_error": max_abs(self.variance_quantum - self.variance_exact),
+            "variance_hadamard_max_abs_error": max_abs(self.variance_quantum_hadamard - self.variance_exact),
+            "mean_rel_rmse": rel_rmse(self.mean_quantum - self.mean_exact, self.mean_exact - p.y_offset),
+            "variance_rel_rmse": rel_rmse(self.variance_quantum - self.variance_exact, self.variance_exact),
             "negative_variances": self.n_negative_variances,
             "success_probability_min": float(np.min(succ)),
             "success_probability_mean": float(np.mean(succ)),
@@ -178,16 +178,6 @@ class InferenceResult:
 
 def _none_if_nan(x: float) -> float | None:
     return None if not math.isfinite(x) else float(x)
-
-
-def _max_abs(x: np.ndarray) -> float:
-    return float(np.max(np.abs(x)))
-
-
-def _rel_rmse(err: np.ndarray, ref: np.ndarray) -> float:
-    """RMSE relative to the RMS of the reference (the centred mean: what the circuit estimates)."""
-    scale = math.sqrt(float(np.mean(ref**2)))
-    return math.sqrt(float(np.mean(err**2))) / scale if scale > 0 else math.inf
 
 
 def planned_qubits(problem: Problem, circuit: CircuitSettings, readout: ReadoutSettings) -> int:
@@ -301,7 +291,7 @@ def _model_difference(inp: StrategyInputs, out: Outcomes) -> float | None:
         return None
     own_B = model_operator(inp.inverse, inp.A)
     own_M = model_operator(inp.inverse_sqrt, inp.A)
-    return max(_max_abs(own_B - out.operators.B), _max_abs(own_M - out.operators.M))
+    return max(max_abs(own_B - out.operators.B), max_abs(own_M - out.operators.M))
 
 
 def infer(

@@ -6,7 +6,6 @@ The clock grid, α and the oracle's label come from the inversion-method registr
 
 from __future__ import annotations
 
-import math
 from collections.abc import Iterable, Mapping
 from dataclasses import replace
 from pathlib import Path
@@ -15,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from qgp.errors import QgpError
+from qgp.readout.budget import rel_rmse
 
 __all__ = [
     "MEAN_TARGET",
@@ -128,7 +128,7 @@ class _FilterModel:
             return None
         f = _response(inv, self.lam)
         err = self.ks.T @ (self.V @ (f / inv.scale * self.vy)) - self.mean_ref
-        return _rel_rmse(err, self.mean_ref), float(np.sum(f**2 * self.y_hat**2))
+        return rel_rmse(err, self.mean_ref), float(np.sum(f**2 * self.y_hat**2))
 
     def variance(self, clock_qubits: int) -> tuple[float, float] | None:
         """(relative RMSE of the latent variance, smallest P_var over test points) at c clock qubits."""
@@ -139,7 +139,7 @@ class _FilterModel:
         quad = np.einsum("it,i,it->t", self.vk, h, self.vk)
         err = self.problem.k_star_star - quad / inv.scale - self.var_ref
         ok = self.k_norm2 > 0
-        return _rel_rmse(err, self.var_ref), float(np.min(quad[ok] / self.k_norm2[ok]))
+        return rel_rmse(err, self.var_ref), float(np.min(quad[ok] / self.k_norm2[ok]))
 
 
 def model_errors(problem, circuit) -> dict[str, float | None]:
@@ -201,9 +201,3 @@ def scaling_model(cfg, n_values: Iterable[int], *, max_clock: int = MODEL_MAX_CL
                 break
         out.append(rec)
     return out
-
-
-def _rel_rmse(err: np.ndarray, ref: np.ndarray) -> float:
-    """As qgp.readout.inference: RMSE of the error over the RMS of the reference."""
-    scale = math.sqrt(float(np.mean(ref**2)))
-    return math.sqrt(float(np.mean(err**2))) / scale if scale > 0 else math.inf
