@@ -34,6 +34,7 @@ from qgp.readout.filter_model import model_operator
 from qgp.readout.plan import SimulationPlan, check_clock_qubits, simulation_plan
 from qgp.readout.simulate import default_memory_cap
 from qgp.readout.strategies import STRATEGIES, Outcomes, StrategyInputs
+from qgp.readout.summary import check_summary
 from qgp.settings import CircuitSettings, ReadoutSettings
 
 __all__ = [
@@ -107,7 +108,8 @@ class InferenceResult:
         return count_nonpositive(self.variance_quantum)
 
     def summary(self) -> dict:
-        """The JSON-ready summary (`summary.json` keys; see docs)."""
+        """The JSON-ready summary: the inference keys of `summary.json`, checked against the schema
+        (`qgp.readout.summary.SUMMARY_KEYS`, listed in docs/summary.md)."""
         p = self.problem
         d = p.diagnostics
         q = self.qubits
@@ -173,6 +175,7 @@ class InferenceResult:
                 "note": "NLPD of y with predictive variance = latent + noise; null when any variance is ≤ 0 "
                 "(never clipped; see negative_variances)",
             }
+        check_summary(out, stage="inference")
         return out
 
 

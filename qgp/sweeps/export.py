@@ -6,34 +6,17 @@ import csv
 import json
 import math
 from pathlib import Path
-from typing import Any, Iterator, Mapping
+from typing import Any
 
 from qgp.errors import QgpError
 from qgp.files import atomic_open, check_output_file, same_file
+from qgp.readout.summary import table_leaves
 from qgp.sweeps.execute import _duration
 from qgp.sweeps.grid import _axes_text
 from qgp.sweeps.lock import lock_path
 from qgp.sweeps.store import StoreStatus, open_store
 
 __all__ = ["store_status", "format_status", "export_csv"]
-
-#: Keys of the summary document left out of the tidy CSV: text, provenance and nested records
-#: that are not one number per point (the stored summary_json keeps them).
-_CSV_SKIP = {
-    "config",
-    "versions",
-    "note",
-    "caveat",
-    "prior_mean_note",
-    "variance_kind",
-    "config_file",
-    "provenance",
-    "composition",
-    "oracle_call",
-    "stages",
-    "increments",
-}
-
 
 def store_status(store_path: str | Path) -> StoreStatus:
     """Counts per the grid (done, failed, pending), failures and time span of a store."""
@@ -64,17 +47,6 @@ def format_status(st: StoreStatus, *, max_failures: int = 20) -> str:
     if st.pending:
         lines.append("pending points run when the same `qgp sweep SWEEP.toml --store …` command runs again")
     return "\n".join(lines)
-
-
-def _flatten(doc: Mapping[str, Any], prefix: str = "") -> Iterator[tuple[str, Any]]:
-    for key, val in doc.items():
-        if key in _CSV_SKIP:
-            continue
-        name = f"{prefix}{key}"
-        if isinstance(val, Mapping):
-            yield from _flatten(val, name + ".")
-        elif isinstance(val, (int, float, str, bool)) or val is None:
-            yield name, val
 
 
 def _cell(value: Any) -> str:
@@ -140,7 +112,7 @@ def export_csv(store_path: str | Path, out: str | Path, *, test_points: bool = F
             rows = []
             scalar_names: list[str] = []
             for p in points:
-                flat = dict(_flatten(p.summary or {}))
+                flat = dict(table_leaves(p.summary or {}))
                 for name in flat:
                     if name not in scalar_names:
                         scalar_names.append(name)

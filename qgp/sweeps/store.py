@@ -35,6 +35,7 @@ from pathlib import Path
 from typing import Any, Literal, Mapping, Sequence
 
 from qgp.errors import QgpError
+from qgp.readout.summary import store_columns
 
 __all__ = [
     "FORMAT",
@@ -62,37 +63,9 @@ APPLICATION_ID = 0x71677073
 
 PointStatus = Literal["done", "failed"]
 
-#: Summary scalars copied into columns of ``points``: (column, SQL type, path in summary.json).
-SUMMARY_COLUMNS: tuple[tuple[str, str, tuple[str, ...]], ...] = (
-    ("n_train", "INTEGER", ("n_train",)),
-    ("n_test", "INTEGER", ("n_test",)),
-    ("system_qubits", "INTEGER", ("system_qubits",)),
-    ("clock_qubits", "INTEGER", ("clock_qubits",)),
-    ("ancilla_qubits", "INTEGER", ("ancilla_qubits",)),
-    ("total_qubits", "INTEGER", ("total_qubits",)),
-    ("condition_number", "REAL", ("condition_number",)),
-    ("sparsity", "INTEGER", ("sparsity",)),
-    ("noise_variance", "REAL", ("noise_variance",)),
-    ("evolution", "TEXT", ("evolution",)),
-    ("encoding", "TEXT", ("encoding",)),
-    ("shots", "INTEGER", ("shots",)),
-    ("seed", "INTEGER", ("seed",)),
-    ("strategy", "TEXT", ("strategy",)),
-    ("mean_max_abs_error", "REAL", ("mean_max_abs_error",)),
-    ("variance_max_abs_error", "REAL", ("variance_max_abs_error",)),
-    ("mean_rel_rmse", "REAL", ("mean_rel_rmse",)),
-    ("variance_rel_rmse", "REAL", ("variance_rel_rmse",)),
-    ("negative_variances", "INTEGER", ("negative_variances",)),
-    ("success_probability_min", "REAL", ("success_probability_min",)),
-    ("success_probability_mean", "REAL", ("success_probability_mean",)),
-    ("success_probability_inversion", "REAL", ("success_probability_inversion",)),
-    ("success_probability_variance_min", "REAL", ("success_probability_variance_min",)),
-    ("success_probability_variance_mean", "REAL", ("success_probability_variance_mean",)),
-    ("test_rmse_exact", "REAL", ("test_rmse", "exact")),
-    ("test_rmse_quantum", "REAL", ("test_rmse", "quantum")),
-    ("test_nlpd_exact", "REAL", ("test_nlpd", "exact")),
-    ("test_nlpd_quantum", "REAL", ("test_nlpd", "quantum")),
-)
+#: Summary scalars copied into columns of ``points``: (column, SQL type, path in summary.json), from
+#: the summary schema's ``column`` entries (`qgp.readout.summary.SUMMARY_KEYS`).
+SUMMARY_COLUMNS: tuple[tuple[str, str, tuple[str, ...]], ...] = store_columns()
 
 #: Columns of ``test_points`` after (grid_index, test_index, inputs), in order.
 TEST_POINT_COLUMNS: tuple[str, ...] = (

@@ -17,6 +17,7 @@ from typing import Any
 from qgp.circuits.methods import method_label
 from qgp.errors import QgpError
 from qgp.settings import CircuitSettings
+from qgp.readout.summary import summary_key
 from qgp.sweeps.store import SUMMARY_COLUMNS
 
 __all__ = ["SEED_KEYS", "SUMMARY", "load_points", "point_value"]
@@ -62,6 +63,7 @@ def point_value(point, ref: str) -> Any:
     """The value a CSV ``x_name``/``y_name`` names: "summary:a.b", "config:section.key" or "axes:key"."""
     where, _, path = ref.partition(":")
     if where == "summary":
+        summary_key(path.split(".", 1)[0])  # a reference to a key summary.json never has is a bug, not a gap
         return _dig(point.summary, path)
     if where == "config":
         return _dig(point.config, path)
@@ -274,9 +276,9 @@ def _setting(points, skip: Iterable[str] = ()) -> str:
 
     parts = []
     if "n" not in skip and same(SUMMARY["n_train"]) is not None:
-        parts.append(f"n = {same('summary:n_train')} training points")
+        parts.append(f"n = {same(SUMMARY['n_train'])} training points")
     if "c" not in skip and same(SUMMARY["clock_qubits"]) is not None:
-        parts.append(f"c = {same('summary:clock_qubits')} clock qubits")
+        parts.append(f"c = {same(SUMMARY['clock_qubits'])} clock qubits")
     if "kernel" not in skip:
         fam, ls, amp = (same(f"config:kernel.{k}") for k in ("family", "lengthscale", "amplitude"))
         if fam is not None and ls is not None and amp is not None:

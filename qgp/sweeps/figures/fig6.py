@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
+from qgp.readout.summary import summary_ref
 from qgp.sweeps.figures.data import (
     _NOISE_KEYS,
     _ORACLE_KEYS,
@@ -23,8 +24,10 @@ from qgp.sweeps.figures.data import (
 )
 from qgp.sweeps.figures.style import SINGLE_COLUMN, _Figure, _Panel
 
-_CX = "summary:resources.inverse.gate_counts.u_cx.cx"
-_DEPTH = "summary:resources.inverse.gate_counts.u_cx.depth"
+_CX = summary_ref("resources", "inverse", "gate_counts", "u_cx", "cx")
+_DEPTH = summary_ref("resources", "inverse", "gate_counts", "u_cx", "depth")
+_SKIPPED = summary_ref("resources", "inverse", "gate_level_skipped")
+_DEPENDENT = summary_ref("resources", "inverse", "synthesis_dependent")
 
 
 def _most_common_slice(points, fixed: str, varied: str):
@@ -43,7 +46,7 @@ def _most_common_slice(points, fixed: str, varied: str):
 
 def _fig6(points) -> _Figure:
     pts = [p for p in _with(points, _CX) if _finite(point_value(p, _DEPTH))]
-    skipped = [p for p in points if point_value(p, "summary:resources.inverse.gate_level_skipped")]
+    skipped = [p for p in points if point_value(p, _SKIPPED)]
     notes = [f"gate counts skipped at {len(skipped)} point(s) (over the synthesis limit)"] if skipped else []
     if not pts:
         raise _Skip("needs gate counts (summary resources.inverse.gate_counts) at some points")
@@ -56,7 +59,7 @@ def _fig6(points) -> _Figure:
 
     def series(p):
         oracle = _oracle(p)
-        dependent = bool(point_value(p, "summary:resources.inverse.synthesis_dependent"))
+        dependent = bool(point_value(p, _DEPENDENT))
         return ((oracle[0], oracle[1] + (" †" if dependent else "")),)
 
     rows: list[_Row] = []
