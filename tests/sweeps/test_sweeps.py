@@ -569,7 +569,8 @@ def test_kill_and_resume_keeps_one_row_per_point_and_finished_rows_unchanged(tmp
     proc = _sweep_cli(path, store, "--workers", "2")
     _wait_for_done(proc, store, len(killed) + 1)
     proc.send_signal(signal.SIGTERM)
-    assert proc.wait(timeout=60) == 130
+    rc = proc.wait(timeout=60)
+    assert rc == 130, proc.communicate()[1].decode()[-2000:]
 
     # 3. Run to the end.
     proc = _sweep_cli(path, store, "--workers", "2")
