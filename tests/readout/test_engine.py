@@ -1,0 +1,199 @@
+"""The numpy engine against qiskit-aer's statevector simulator (the reference), on every circuit qgp
+simulates, for every registered inversion method; and the engine's QFT against qiskit's QFTGate.
+
+Tolerance 1e-12 on amplitudes of unit vectors: both sides are double precision and the circuits
+are ~100 instructions deep, so round-off stays near 1e-15 (measured worst here: 6e-16).
+"""
+
+import numpy as np
+import pytest
+from hypothesis import given, settings, strategies as st
+from qiskit import QuantumCircuit
+from qiskit.circuit.library import QFTGate
+from qiskit.quantum_info import Operator
+
+from qgp.circuits.methods import METHODS
+from qgp.circuits.methods.encodings import ENCODINGS
+from qgp.circuits.phase_estimation import _inverse_qft, _qft
+from qgp.errors import QgpError
+from qgp.readout import engine
+from qgp.readout.builds import cached_pair, qpe_body, with_preparation
+from qgp.readout.estimators import (
+    _HadamardTemplate,
+    _reference_with_snapshot,
+    operators_from_reference_run,
+    reference_circuit,
+    variance_circuit,
+)
+from qgp.readout.simulate import engine_scope, run_saved_statevectors, run_statevectors
+from qgp.settings import CircuitSettings
+
+TOL = 1e-12
+
+
+def _cases():
+    out = []
+    for name, method in METHODS.items():
+        encodings = list(ENCODINGS) if method.uses_block_encoding else [CircuitSettings().encoding]
+        for enc in encodings:
+            label = f"{name}-{enc}" if method.uses_block_encoding else name
+            out.append(pytest.param(CircuitSettings(clock_qubits=4, evolution=name, encoding=enc, trotter_steps=2), id=label))
+    return out
+
+
+def _spd(n: int, seed: int) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    x = rng.normal(size=(n, n))
+    return x @ x.T / n + 0.5 * np.eye(n)
+
+
+def _unit(n: int, seed: int) -> np.ndarray:
+    v = np.random.default_rng(seed).normal(size=n)
+    return v / np.linalg.norm(v)
+
+
+def _aer(circuits):
+    with engine_scope("aer") as used:
+        out = run_statevectors(circuits)
+    assert used == ["aer"]
+    return out
+
+
+def _worst(a, b) -> float:
+    return float(np.max(np.abs(np.asarray(a) - np.asarray(b))))
+
+
+@pytest.mark.parametrize("settings_", _cases())
+@pytest.mark.parametrize("n", [4, 8])
+def test_every_simulated_circuit_equals_aer(settings_, n):
+    A = _spd(n, 3 + n)
+    lam = np.linalg.eigvalsh(A)
+    bounds = (0.95 * lam[0], 1.05 * lam[-1])
+    inv, inv_sqrt = cached_pair(A, settings_, bounds)
+    qpe = qpe_body(A, settings_, bounds, inv)
+    k, y = _unit(n, 1), _unit(n, 2)
+    circuits = [
+        reference_circuit(inv),
+        reference_circuit(inv_sqrt),
+        _HadamardTemplate(qpe, inv).circuit(k, y),
+        variance_circuit(inv_sqrt.circuit, k),
+        with_preparation(inv, y).circuit,
+    ]
+    assert all(engine.supports(c) for c in circuits)
+    for c, ref in zip(circuits, _aer(circuits)):
+        got = engine.simulate(c)["final"]
+        assert _worst(got, ref) < TOL, f"{c.name}: worst |Δamplitude| {_worst(got, ref):.2e}"
+
+
+@pytest.mark.parametrize("settings_", _cases())
+def test_saved_states_and_operators_equal_aer(settings_):
+    A = _spd(4, 5)
+    lam = np.linalg.eigvalsh(A)
+    inv, inv_sqrt = cached_pair(A, settings_, (0.95 * lam[0], 1.05 * lam[-1]))
+    qc = _reference_with_snapshot(inv)
+    labels = ["phase_estimated", "final"]
+    with engine_scope("aer"):
+        ref = run_saved_statevectors(qc, labels)
+        ops_aer = operators_from_reference_run(inv, inv_sqrt)
+    with engine_scope("numpy") as used:
+        got = run_saved_statevectors(qc, labels)
+        ops_np = operators_from_reference_run(inv, inv_sqrt)
+    assert used and set(used) == {"numpy"}
+    for label, a, b in zip(labels, got, ref):
+        assert _worst(a, b) < TOL, f"{label}: {_worst(a, b):.2e}"
+    assert _worst(ops_np.B, ops_aer.B) < TOL and _worst(ops_np.M, ops_aer.M) < TOL
+
+
+@pytest.mark.parametrize("c", [2, 3, 5, 7])
+def test_written_out_qft_runs_as_an_fft_equal_to_qiskits_qftgate(c, monkeypatch):
+    calls = []
+    original = engine._State.fft
+    monkeypatch.setattr(engine._State, "fft", lambda self, *a, **k: (calls.append(a), original(self, *a, **k))[1])
+    rng = np.random.default_rng(c)
+    psi = rng.normal(size=2 ** (c + 1)) + 1j * rng.normal(size=2 ** (c + 1))
+    psi /= np.linalg.norm(psi)
+    for body, gate in ((_inverse_qft(c), QFTGate(c).inverse()), (_qft(c), QFTGate(c))):
+        circ = QuantumCircuit(c + 1)
+        circ.compose(body, qubits=range(1, c + 1), inplace=True)
+        state = engine._State(c + 1)
+        state.t = psi.reshape((2,) * (c + 1)).copy()
+        state.order = list(range(c, -1, -1))
+        calls.clear()
+        # Run the body's instructions through the engine's dispatcher on this state.
+        out = _run_on(state, circ)
+        assert len(calls) == 1, "the written-out QFT was not recognised"
+        want = (np.kron(Operator(gate).data, np.eye(2))) @ psi
+        assert _worst(out, want) < TOL, f"{'inverse ' if gate.name != 'qft' else ''}QFT c={c}: {_worst(out, want):.2e}"
+
+
+def _run_on(state, circ):
+    """The engine's instruction loop, from a given state (test helper; same code path as simulate)."""
+    from qgp.readout.engine import _match_qft
+
+    index = {q: i for i, q in enumerate(circ.qubits)}
+    pos = 0
+    data = circ.data
+    while pos < len(data):
+        match = _match_qft(data, pos, index)
+        assert match is not None
+        length, qubits, inverse = match
+        state.fft(qubits, inverse, 1)
+        pos += length
+    return state.release()
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.lists(st.tuples(st.sampled_from(["h", "x", "s", "sdg", "ry", "cx", "cp", "swap", "mux", "diag"]),
+                          st.integers(0, 3), st.integers(0, 3), st.floats(-3, 3)), min_size=1, max_size=25))
+def test_random_circuits_of_supported_gates_equal_aer(ops):
+    """Law: for any sequence of the instructions the engine applies, its state equals Aer's."""
+    qc = QuantumCircuit(4)
+    rng = np.random.default_rng(len(ops))
+    from qiskit.circuit.library import DiagonalGate
+
+    from qgp.circuits.encoding import MultiplexerGate
+
+    for name, a, b, theta in ops:
+        if name in ("cx", "cp", "swap") and a == b:
+            b = (a + 1) % 4
+        if name == "h":
+            qc.h(a)
+        elif name == "x":
+            qc.x(a)
+        elif name == "s":
+            qc.s(a)
+        elif name == "sdg":
+            qc.sdg(a)
+        elif name == "ry":
+            qc.ry(theta, a)
+        elif name == "cx":
+            qc.cx(a, b)
+        elif name == "cp":
+            qc.cp(theta, a, b)
+        elif name == "swap":
+            qc.swap(a, b)
+        elif name == "diag":
+            qc.append(DiagonalGate(list(np.exp(1j * rng.normal(size=4)))), [a, (a + 2) % 4])
+        else:
+            mats = [np.linalg.qr(rng.normal(size=(2, 2)) + 1j * rng.normal(size=(2, 2)))[0] for _ in range(4)]
+            qc.append(MultiplexerGate(mats), [a, (a + 1) % 4, (a + 3) % 4])
+    [ref] = _aer([qc])
+    got = engine.simulate(qc)["final"]
+    assert _worst(got, ref) < TOL, f"worst |Δamplitude| {_worst(got, ref):.2e}"
+
+
+def test_unsupported_instructions_fall_back_to_aer_or_are_refused():
+    qc = QuantumCircuit(2)
+    qc.h(0)
+    qc.rzz(0.3, 0, 1)
+    assert not engine.supports(qc)
+    with pytest.raises(engine.Unsupported, match="rzz"):
+        engine.simulate(qc)
+    with engine_scope("auto") as used:
+        run_statevectors([qc])
+    assert used == ["aer"]
+    with engine_scope("numpy"), pytest.raises(QgpError, match="engine = 'numpy' does not apply rzz"):
+        run_statevectors([qc])
+    with pytest.raises(QgpError, match="engine must be one of"):
+        with engine_scope("gpu"):
+            pass
