@@ -29,6 +29,7 @@ from qgp.settings import (
     NoiseSpec,
     ReadoutSettings,
     Strategy,
+    Engine,
     choices,
 )
 
@@ -50,7 +51,7 @@ _SECTIONS: dict[str, tuple[str, ...]] = {
         "evolution_time",
         "filter_floor",
     ),
-    "readout": ("shots", "seed", "strategy", "memory_cap_gib"),
+    "readout": ("shots", "seed", "strategy", "memory_cap_gib", "engine"),
 }
 
 
@@ -273,6 +274,7 @@ def _parse_readout(v: _Validator, t: dict) -> ReadoutSettings:
         seed=v.integer(t, "readout", "seed", d.seed, minimum=0),
         strategy=v.choice(t, "readout", "strategy", d.strategy, Strategy),
         memory_cap_bytes=None if cap is None else int(cap * 2**30),
+        engine=v.choice(t, "readout", "engine", d.engine, Engine),
     )
 
 

@@ -19,6 +19,7 @@ __all__ = [
     "Evolution",
     "EVOLUTION_USES_BLOCK_ENCODING",
     "Strategy",
+    "Engine",
     "Rotation",
     "TrotterOrder",
     "DataSpec",
@@ -42,6 +43,8 @@ Evolution = Literal["exact", "trotter", "walk"]
 #: ``uses_block_encoding``).
 EVOLUTION_USES_BLOCK_ENCODING: dict[str, bool] = {"exact": False, "trotter": False, "walk": True}
 Strategy = Literal["amortised", "per-point"]
+#: Statevector engine: numpy where it applies (auto), always numpy, or always qiskit-aer.
+Engine = Literal["auto", "numpy", "aer"]
 Rotation = Literal["inverse", "inverse_sqrt"]
 TrotterOrder = Literal[1, 2]
 
@@ -126,6 +129,7 @@ class ReadoutSettings:
     seed: int = 20261202
     strategy: Strategy = "amortised"
     memory_cap_bytes: int | None = None
+    engine: Engine = "auto"
 
 
 @dataclass(frozen=True)

@@ -74,6 +74,8 @@ class CircuitOperators:
     #: The simulator runs that produced B and M: dicts with ``what``, ``qubits``, ``runs`` and
     #: ``columns_per_run`` (the reference register's basis columns each run covered).
     simulation_runs: tuple = ()
+    #: The statevector engine that produced them ("numpy", "aer"; qgp.readout.simulate).
+    engine: str = "none"
 
 
 def reference_circuit(inv: InversionCircuit, reference_qubits: int | None = None, block: int = 0) -> QuantumCircuit:

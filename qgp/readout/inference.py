@@ -32,7 +32,7 @@ from qgp.readout.builds import SIMULATED_FORM, cached_pair, clear_caches
 from qgp.readout.estimators import CircuitOperators, hadamard_probabilities, variance_probabilities
 from qgp.readout.filter_model import model_operator
 from qgp.readout.plan import SimulationPlan, check_clock_qubits, simulation_plan
-from qgp.readout.simulate import default_memory_cap
+from qgp.readout.simulate import default_memory_cap, engine_scope, engines_used
 from qgp.readout.strategies import STRATEGIES, Outcomes, StrategyInputs
 from qgp.readout.summary import check_summary
 from qgp.settings import CircuitSettings, ReadoutSettings
@@ -85,6 +85,8 @@ class InferenceResult:
     shots_needed: dict
     filter_model_max_abs_difference: float | None
     operators: CircuitOperators | None
+    #: Which statevector engine ran ("numpy", "aer", "numpy+aer"; qgp.readout.simulate).
+    engine: str
     elapsed_seconds: float
     timings: dict = field(default_factory=dict)
     #: The simulator runs behind the numbers: dicts with ``what``, ``qubits``, ``runs``,
@@ -134,6 +136,7 @@ class InferenceResult:
             "seed": self.readout.seed,
             "strategy": self.readout.strategy,
             "simulated_form": SIMULATED_FORM,
+            "engine": self.engine,
             "prior_mean": p.y_offset,
             "prior_mean_note": (
                 "the training mean of the target was subtracted before inference and added back to every mean"
@@ -344,8 +347,9 @@ def infer(
     inp = StrategyInputs(problem, circuit, readout, A, bounds, inv, inv_sqrt, yhat, khat, cap, plan)
     t0 = time.perf_counter()
     sim_times: dict[str, float] = {"transpile": 0.0, "simulate": 0.0}
-    out = STRATEGIES[readout.strategy].outcomes(inp, sim_times, say)
-    elapsed = time.perf_counter() - t0
+    with engine_scope(readout.engine) as used:
+        out = STRATEGIES[readout.strategy].outcomes(inp, sim_times, say)
+        elapsed = time.perf_counter() - t0
     # "transpile": preparing circuits for Aer (nothing for the native simulation form);
     # "simulate": the rest of this stage — circuit assembly, the simulator jobs, reading results.
     timings["transpile"] = sim_times["transpile"]
@@ -354,7 +358,9 @@ def infer(
     t0 = time.perf_counter()
     exact = problem.exact.predict(problem.X_test)
     mean_exact, var_exact = exact.mean, exact.variance_latent
-    (mean_q, var_q, var_had), sampled = _estimates_with_shots(inp, out, y_norm, k_norms, say)
+    with engine_scope(readout.engine) as used_for_shots:
+        (mean_q, var_q, var_had), sampled = _estimates_with_shots(inp, out, y_norm, k_norms, say)
+    used = used + used_for_shots + ([out.operators.engine] if out.operators is not None and not used else [])
     budget = _budget(inp, out, (mean_exact, var_exact), (mean_q, var_q), sampled, y_norm, k_norms)
     needed = shots_needed(problem, out.p0, out.p1, out.p_flag, y_norm, k_norms, inv, inv_sqrt, mean_exact, var_exact)
     est, failures = sampled if sampled is not None else (None, None)
@@ -381,6 +387,7 @@ def infer(
         shots_needed=needed,
         filter_model_max_abs_difference=_model_difference(inp, out),
         operators=out.operators,
+        engine=engines_used(used),
         elapsed_seconds=time.perf_counter() - t_start,
         timings=timings,
         simulation_runs=out.runs,

@@ -9,15 +9,22 @@ Circuits are transpiled at optimisation level 0 (higher levels cost several time
 simulated no faster in trials here), through one pass manager per simulator built once: building
 it from the backend's target cost ~0.3 s per call. Circuits made only of instructions Aer runs
 natively (the simulation forms of qgp's circuits) skip transpiling altogether.
+
+Statevector runs go to the engine the current `engine_scope` names: ``"aer"``; ``"numpy"``, the
+structured engine of `qgp.readout.engine` (checked against Aer to 1e-12 on every method); or
+``"auto"`` (the default): numpy where it applies every instruction, Aer otherwise. Shot counts
+always come from Aer. `engines_used` lists what ran in the scope.
 """
 
 from __future__ import annotations
 
+import contextlib
+import contextvars
 import os
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from functools import lru_cache
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 from qiskit import QuantumCircuit
@@ -47,7 +54,64 @@ __all__ = [
     "run_counts",
     "is_native",
     "prepare_for_simulator",
+    "Engine",
+    "ENGINES",
+    "engine_scope",
+    "engines_used",
 ]
+
+Engine = Literal["auto", "numpy", "aer"]
+#: The engine choices (config ``[readout] engine``).
+ENGINES: tuple[str, ...] = ("auto", "numpy", "aer")
+_ENGINE: contextvars.ContextVar[tuple[str, list[str]]] = contextvars.ContextVar("qgp_engine", default=("auto", []))
+
+
+@contextlib.contextmanager
+def engine_scope(engine: Engine) -> Iterator[list[str]]:
+    """Statevector runs inside use ``engine``; yields the list of engines that ran, in order."""
+    if engine not in ENGINES:
+        raise QgpError(f"engine must be one of {', '.join(ENGINES)}, got {engine!r}")
+    from qgp.readout.engine import buffer_pool
+
+    used: list[str] = []
+    token = _ENGINE.set((engine, used))
+    try:
+        with buffer_pool():  # the numpy engine's work buffers live as long as the outermost scope
+            yield used
+    finally:
+        _ENGINE.reset(token)
+
+
+def engines_used(used: list[str]) -> str:
+    """"numpy", "aer", "numpy+aer" (both ran) or "none" (nothing simulated)."""
+    names = [e for e in ("numpy", "aer") if e in used]
+    return "+".join(names) if names else "none"
+
+
+def _use_numpy(circuits: list[QuantumCircuit], numpy_bytes: int, cap: int | None) -> bool:
+    """Whether the numpy engine runs ``circuits``: always under "numpy" (refusing what it cannot
+    apply), never under "aer"; under "auto" when it applies every instruction and its memory
+    (``numpy_bytes``: the states plus two work buffers) fits under the cap — else Aer, whose
+    memory the simulation plan and the guard count."""
+    from qgp.readout.engine import SUPPORTED, supports
+
+    engine, _ = _ENGINE.get()
+    if engine == "aer":
+        return False
+    if engine == "numpy":
+        for c in circuits:
+            if not supports(c):
+                bad = sorted({i.operation.name for i in c.data} - SUPPORTED)
+                raise QgpError(
+                    f"engine = 'numpy' does not apply {', '.join(bad)} in '{c.name}'; use engine = 'auto' or 'aer'"
+                )
+        return True
+    cap = default_memory_cap() if cap is None else int(cap)
+    return numpy_bytes <= cap and all(supports(c) for c in circuits)
+
+
+def _log(engine: str) -> None:
+    _ENGINE.get()[1].append(engine)
 
 _THREADS: int | None = None
 
@@ -61,6 +125,10 @@ def set_threads(n: int | None) -> None:
     """Cap the simulator's threads (sweep workers pin this so workers × threads ≤ cores)."""
     global _THREADS
     _THREADS = None if n is None else max(1, int(n))
+
+
+def _threads() -> int:
+    return _THREADS or cpu_count()
 
 
 def simulator():
@@ -221,8 +289,11 @@ def run_statevectors(
         groups = [list(range(len(circuits)))]
     else:
         groups = _batches(circuits, cap)
+    if _use_numpy(circuits, _numpy_bytes(circuits, reduce), cap):
+        return _numpy_statevectors(circuits, cap, timings, reduce)
     sim = simulator()
     out: list = []
+    _log("aer")
     for group in groups:
         t0 = time.perf_counter()
         compiled = [_with_final_save(c) for c in prepare_for_simulator([circuits[i] for i in group], sim)]
@@ -250,6 +321,21 @@ def run_saved_statevectors(
     require_memory(
         len(labels) * statevector_bytes(n), f"simulating '{circuit.name}' on {n} qubits ({len(labels)} saved states)", cap
     )
+    if _use_numpy([circuit], (len(labels) + 2) * statevector_bytes(n), cap):
+        from qgp.readout.engine import simulate
+
+        require_memory(
+            (len(labels) + 2) * statevector_bytes(n),
+            f"simulating '{circuit.name}' on {n} qubits with the numpy engine ({len(labels)} saved states, two work buffers)",
+            cap,
+        )
+        _log("numpy")
+        t0 = time.perf_counter()
+        states = simulate(circuit, labels=labels, workers=_threads())
+        if timings is not None:
+            timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t0)
+        return [states[label] for label in labels]
+    _log("aer")
     t0 = time.perf_counter()
     sim = simulator()
     [compiled] = prepare_for_simulator([circuit], sim)
@@ -265,6 +351,40 @@ def run_saved_statevectors(
     return out
 
 
+def _numpy_bytes(circuits, reduce) -> int:
+    """Memory of `_numpy_statevectors`: two work buffers of the widest circuit, and every final
+    state unless reduced."""
+    widest = max(c.num_qubits for c in circuits)
+    kept = 0 if reduce is not None else sum(statevector_bytes(c.num_qubits) for c in circuits)
+    return 2 * statevector_bytes(widest) + kept
+
+
+def _numpy_statevectors(circuits, cap: int, timings: dict | None, reduce) -> list:
+    """`run_statevectors` on the numpy engine: one circuit at a time, two work buffers beside
+    the state (reused between circuits); with ``reduce`` the final state is never copied."""
+    from qgp.readout.engine import simulate
+
+    widest = max(c.num_qubits for c in circuits)
+    require_memory(
+        _numpy_bytes(circuits, reduce),
+        f"simulating {len(circuits)} circuit(s) of up to {widest} qubits with the numpy engine (two work buffers"
+        + ("" if reduce is not None else ", every final state kept") + ")",
+        cap,
+    )
+    _log("numpy")
+    out = []
+    t0 = time.perf_counter()
+    workers = _threads()
+    for i, c in enumerate(circuits):
+        if reduce is None:
+            out.append(simulate(c, workers=workers)["final"])
+        else:
+            out.append(simulate(c, workers=workers, reduce=lambda sv, i=i: reduce(i, sv))["final"])
+    if timings is not None:
+        timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t0)
+    return out
+
+
 def run_statevector(circuit: QuantumCircuit, *, cap: int | None = None) -> np.ndarray:
     """Final statevector of one measurement-free circuit."""
     return run_statevectors([circuit], cap=cap)[0]
@@ -276,6 +396,7 @@ def run_counts(circuits: list[QuantumCircuit], shots: int, seed: int, *, cap: in
         require_memory(statevector_bytes(c.num_qubits), f"simulating '{c.name}' on {c.num_qubits} qubits", cap)
     sim = simulator()
     compiled = prepare_for_simulator(circuits, sim)
+    _log("aer")
     result = sim.run(compiled, shots=shots, seed_simulator=seed).result()
     if not result.success:
         raise QgpError(f"the simulator failed: {result.status}")

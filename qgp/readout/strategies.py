@@ -10,7 +10,7 @@ the circuit's own answer (tests/readout/test_inference.py: equal to 1e-10). `STR
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -29,7 +29,7 @@ from qgp.readout.estimators import (
     variance_probabilities,
 )
 from qgp.readout.plan import SimulationPlan
-from qgp.readout.simulate import run_statevectors
+from qgp.readout.simulate import engine_scope, engines_used, run_statevectors
 from qgp.settings import CircuitSettings, ReadoutSettings
 
 __all__ = ["StrategyInputs", "Outcomes", "Strategy", "STRATEGIES"]
@@ -85,9 +85,11 @@ def _amortised(inp: StrategyInputs, sim_times: dict, say: Progress) -> Outcomes:
 
     def simulate_operators():
         made.append(True)
-        return operators_from_reference_run(
-            inp.inverse, inp.inverse_sqrt, cap=inp.cap, timings=sim_times, reference_qubits=ref, progress=say
-        )
+        with engine_scope(inp.readout.engine) as used:
+            ops = operators_from_reference_run(
+                inp.inverse, inp.inverse_sqrt, cap=inp.cap, timings=sim_times, reference_qubits=ref, progress=say
+            )
+        return replace(ops, engine=engines_used(used))
 
     operators = cached(OPERATORS, key, simulate_operators)
     v = operators.B @ inp.yhat

@@ -113,6 +113,7 @@ SUMMARY_KEYS: tuple[SummaryKey, ...] = (
     _k("seed", "int", "seed of the shot sampler", column="seed"),
     _k("strategy", "str", "simulation strategy (amortised or per-point)", column="strategy"),
     _k("simulated_form", "str", "which form of the circuits was simulated"),
+    _k("engine", "str", "statevector engine that ran: numpy, aer or numpy+aer (shots are Aer's)"),
     _k("prior_mean", "float", "constant subtracted from the targets before inference"),
     _k("prior_mean_note", "str", "what prior_mean means", table=False),
     _k("variance_kind", "str", "variances are latent (of f)", table=False),
