@@ -18,7 +18,9 @@ from __future__ import annotations
 
 import contextlib
 import threading
+from collections import OrderedDict
 from collections.abc import Callable, Iterator
+from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
 
@@ -240,14 +242,48 @@ class _State:
 
     def multiplexer(self, stack: np.ndarray, targets: list[int], controls: list[int]) -> None:
         """Σ_k |k⟩⟨k|_controls ⊗ U_k (k little-endian over ``controls``)."""
+        if len(targets) == 1 and targets[0] not in self.order:
+            self._conditioned_expand(stack[:, :, 0], targets[0], controls)
+            return
         self._touch(targets + controls)
-        self._arrange(list(reversed(controls)), list(reversed(targets)))
         K, T = stack.shape[0], stack.shape[1]
+        cgroup, tgroup = list(reversed(controls)), list(reversed(targets))
+        i = self._consecutive(cgroup)
+        k = len(self.order)
+        if i is not None and self.order[k - len(tgroup) :] == tgroup and i + len(cgroup) == k - len(tgroup):
+            # Controls right above the targets: the state is (hi, K, T) as it lies; K products of
+            # (hi × T)(T × T) on strided views, the layout kept (cheaper than a transpose here).
+            shape = self.t.shape
+            view = self.t.reshape(-1, K, T).transpose(1, 0, 2)
+            out = self._scratch(shape)
+            np.matmul(view, stack.transpose(0, 2, 1), out=out.reshape(-1, K, T).transpose(1, 0, 2))
+            self.t = out
+            return
+        self._arrange(cgroup, tgroup)
         shape = self.t.shape
         view = self.t.reshape(K, -1, T)
         out = self._scratch(view.shape)
         np.matmul(view, stack.transpose(0, 2, 1), out=out)
         self.t = out.reshape(shape)
+
+    def _conditioned_expand(self, columns: np.ndarray, target: int, controls: list[int]) -> None:
+        """A fresh qubit set to Σ_f columns[k, f]|f⟩ for control value k: one write of the new state
+        (the new qubit most significant)."""
+        self._touch(controls)
+        cgroup = list(reversed(controls))
+        i = self._consecutive(cgroup)
+        if i is None:
+            self._arrange(cgroup, [])
+            i = 0
+        shape = self.t.shape
+        hi = int(np.prod(shape[:i], dtype=np.int64))
+        K = columns.shape[0]
+        view = self.t.reshape(hi, K, -1)
+        out = self._scratch((2, hi, K, view.shape[2]))
+        for f in (0, 1):
+            np.multiply(view, columns[:, f][None, :, None], out=out[f])
+        self.t = out.reshape((2, *shape))
+        self.order.insert(0, target)
 
     def drop(self) -> None:
         """Forget the state (after an error too); buffers not yet returned are freed."""
@@ -297,9 +333,12 @@ class _State:
 
     def statevector(self) -> np.ndarray:
         """The full statevector, standard order (index bit q = qubit q)."""
-        self._touch(range(self.n))
-        self._arrange(list(range(self.n - 1, -1, -1)), [])
-        return self.t.reshape(-1) * self.factor
+        out = np.zeros((2,) * self.n, dtype=complex)
+        stored = sorted(self.order, reverse=True)  # standard order: most significant qubit first
+        index = tuple(slice(None) if q in self.order else 0 for q in range(self.n - 1, -1, -1))
+        moved = self.t.transpose([self.order.index(q) for q in stored])
+        np.multiply(moved, self.factor, out=out[index])
+        return out.reshape(-1)
 
     def release(self, reduce=None):
         """The final statevector (a new array, the factor applied), or ``reduce`` of it (given a
@@ -313,6 +352,8 @@ class _State:
             if self.factor != 1:
                 flat *= self.factor
             result = reduce(flat)
+            if isinstance(result, np.ndarray) and np.shares_memory(result, flat):
+                result = result.copy()  # the buffer is reused by the next run
         else:
             result = np.empty(2**self.n, dtype=complex)
             np.multiply(flat, self.factor, out=result)
@@ -357,17 +398,85 @@ def simulate(
     Unsupported
         When an instruction is not in `SUPPORTED` (checked before any work).
     """
+    program = _program(circuit)
+    wanted = set(labels or ())
+    state = _State(circuit.num_qubits)
+    out: dict[str, Any] = {}
+    final_label = None
+    try:
+        for step in program.steps:
+            kind = step[0]
+            if kind == "mux":
+                state.multiplexer(step[1], step[2], step[3])
+            elif kind == "layer":
+                _apply_one_qubit_layer(state, step[1])
+            elif kind == "fft":
+                state.fft(step[1], step[2], workers)
+            elif kind == "diag":
+                state.diagonal(step[1], step[2])
+            elif kind == "x":
+                state.x(step[1])
+            elif kind == "cx":
+                state.cx(step[1], step[2])
+            elif kind == "swap":
+                state.swap(step[1], step[2])
+            elif kind == "save":
+                if step[1] in wanted and step[2]:
+                    final_label = step[1]  # the final state itself, below: no extra copy
+                elif step[1] in wanted:
+                    out[step[1]] = state.statevector()
+            else:
+                state.matrix(step[1], step[2])
+        state.factor *= program.phase
+        for label in list(out):
+            out[label] = out[label] * program.phase
+        out["final"] = state.release(reduce)
+    finally:
+        state.drop()
+    if final_label is not None:
+        out[final_label] = out["final"]
+    return out
+
+
+@dataclass(frozen=True)
+class _Program:
+    """A circuit as the engine's steps: ("mux", stack, targets, controls), ("layer", {qubit: 2×2}),
+    ("fft", qubits, inverse?), ("diag", d, qubits), ("x", q), ("cx", c, t), ("swap", a, b),
+    ("save", label, last?), ("matrix", u, qubits); ``phase`` the global phase factor."""
+
+    steps: tuple
+    phase: complex
+
+
+_PROGRAMS_LOCK = threading.Lock()
+#: Compiled circuits, keyed by id() with the circuit itself held (so the id is not reused) and
+#: its length checked; a sweep or a benchmark that simulates one circuit again skips compiling.
+_PROGRAMS: OrderedDict = OrderedDict()
+_PROGRAMS_SIZE = 16
+
+
+def _program(circuit: QuantumCircuit) -> _Program:
+    key = id(circuit)
+    with _PROGRAMS_LOCK:
+        hit = _PROGRAMS.get(key)
+        if hit is not None and hit[0] is circuit and hit[1] == len(circuit.data):
+            _PROGRAMS.move_to_end(key)
+            return hit[2]
+    program = _compile(circuit)
+    with _PROGRAMS_LOCK:
+        _PROGRAMS[key] = (circuit, len(circuit.data), program)
+        while len(_PROGRAMS) > _PROGRAMS_SIZE:
+            _PROGRAMS.popitem(last=False)
+    return program
+
+
+def _compile(circuit: QuantumCircuit) -> _Program:
     bad = sorted({i.operation.name for i in circuit.data} - SUPPORTED)
     if bad:
         raise Unsupported(f"the numpy engine does not apply {', '.join(bad)}; run it on Aer")
-    wanted = set(labels or ())
-    n = circuit.num_qubits
     index = {q: i for i, q in enumerate(circuit.qubits)}
-    state = _State(n)
-    out: dict[str, np.ndarray] = {}
     data = circuit.data
-    phase = np.exp(1j * float(circuit.global_phase))
-    final_label = None
+    steps: list[tuple] = []
     pos = 0
     while pos < len(data):
         inst = data[pos]
@@ -378,49 +487,86 @@ def simulate(
             match = _match_qft(data, pos, index)
             if match is not None:
                 length, qubits, inverse = match
-                state.fft(qubits, inverse, workers)
+                steps.append(("fft", qubits, inverse))
                 pos += length
                 continue
         if name == "multiplexer":
             stack, targets, controls, length = _merged_multiplexers(data, pos, index)
-            state.multiplexer(stack, targets, controls)
+            steps.append(("mux", stack, targets, controls))
             pos += length
             continue
         if len(qs) == 1 and name not in _DIAGONAL_NAMES and name not in ("x", "save_statevector", "barrier"):
             length = _one_qubit_run(data, pos, index)
-            _apply_one_qubit_layer(state, data[pos : pos + length], index)
+            per_qubit: dict[int, np.ndarray] = {}
+            for layer_inst in data[pos : pos + length]:
+                q = index[layer_inst.qubits[0]]
+                u = _matrix_of(layer_inst.operation)
+                per_qubit[q] = u @ per_qubit[q] if q in per_qubit else u
+            steps.append(("layer", per_qubit))
             pos += length
             continue
-        elif name == "diagonal":
-            state.diagonal(np.asarray(op.params, dtype=complex), qs)
+        if name == "diagonal":
+            steps.append(("diag", np.asarray(op.params, dtype=complex), qs))
         elif name in _DIAGONAL_NAMES:
-            state.diagonal(np.diag(_matrix_of(op)), qs)
-        elif name == "x":
-            state.x(qs[0])
-        elif name == "cx":
-            state.cx(qs[0], qs[1])
-        elif name == "swap":
-            state.swap(qs[0], qs[1])
+            steps.append(("diag", np.diag(_matrix_of(op)).copy(), qs))
+        elif name in ("x", "cx", "swap"):
+            steps.append((name, *qs))
         elif name == "save_statevector":
-            label = op.label or "statevector"
-            if label in wanted and pos == len(data) - 1:
-                final_label = label  # the final state itself, below: no extra copy
-            elif label in wanted:
-                out[label] = state.statevector()
-        elif name == "barrier":
-            pass
-        else:
-            state.matrix(_matrix_of(op), qs)
+            steps.append(("save", op.label or "statevector", pos == len(data) - 1))
+        elif name != "barrier":
+            steps.append(("matrix", _matrix_of(op), qs))
         pos += 1
-    state.factor *= phase
-    try:
-        for label in list(out):
-            out[label] = out[label] * phase
-        out["final"] = state.release(reduce)
-    finally:
-        state.drop()
-    if final_label is not None:
-        out[final_label] = out["final"]
+    return _Program(tuple(_fuse_conditioned(steps)), complex(np.exp(1j * float(circuit.global_phase))))
+
+
+def _fuse_conditioned(steps: list[tuple]) -> list[tuple]:
+    """Runs of one-qubit layers on one qubit t and diagonals (on t and other qubits C) become one
+    multiplexer on t controlled by C: every step of the run is block-diagonal in C, so the run is
+    Σ_k |k⟩⟨k|_C ⊗ U_k with U_k the product of its 2 × 2 blocks (the eigenvalue-conditioned
+    rotation, written as S†·H·diag·H·S, is such a run: one pass instead of five)."""
+    out: list[tuple] = []
+    i = 0
+    while i < len(steps):
+        j, target = i, None
+        while j < len(steps):
+            kind = steps[j][0]
+            if kind == "layer" and len(steps[j][1]) == 1:
+                (q,) = steps[j][1]
+                if target not in (None, q):
+                    break
+                target = q
+            elif kind != "diag":
+                break
+            j += 1
+        run = steps[i:j]
+        controls = sorted({q for st in run if st[0] == "diag" for q in st[2]} - {target})
+        if target is None or len(run) < 2 or not controls or not any(st[0] == "diag" and target in st[2] for st in run):
+            out.append(steps[i])
+            i += 1
+            continue
+        if any(st[0] == "diag" and any(q not in controls and q != target for q in st[2]) for st in run):
+            out.append(steps[i])
+            i += 1
+            continue
+        K = 2 ** len(controls)
+        k = np.arange(K)
+        U = np.broadcast_to(np.eye(2, dtype=complex), (K, 2, 2)).copy()
+        for st in run:
+            if st[0] == "layer":
+                U = st[1][target] @ U
+                continue
+            d, qs = st[1], st[2]
+            # d's index: Σ_i bit_i·2^i over qs; read it for every control value k and t = 0, 1.
+            base = np.zeros(K, dtype=np.int64)
+            tbit = 0
+            for pos_, q in enumerate(qs):
+                if q == target:
+                    tbit = 1 << pos_
+                else:
+                    base |= ((k >> controls.index(q)) & 1) << pos_
+            U = np.stack([d[base], d[base | tbit]], axis=1)[:, :, None] * U
+        out.append(("mux", U, [target], controls))
+        i = j
     return out
 
 
@@ -487,6 +633,15 @@ def _merged_multiplexers(data, pos: int, index: dict) -> tuple[np.ndarray, list[
         stack = np.matmul(other[:, None], stack[None]).reshape(-1, *stack.shape[1:])
         controls = controls + oq[n_t:]
         length += 1
+    if controls != sorted(controls):
+        # Relabel k so that the controls run in ascending qubit order (as they lie in the state).
+        nc, T = len(controls), stack.shape[1]
+        axes_now = list(reversed(controls))  # axis j of the reshaped index ↔ this qubit
+        want = sorted(controls, reverse=True)
+        stack = np.ascontiguousarray(
+            stack.reshape((2,) * nc + (T, T)).transpose([axes_now.index(q) for q in want] + [nc, nc + 1])
+        ).reshape(-1, T, T)
+        controls = sorted(controls)
     return stack, targets, controls, length
 
 
@@ -508,14 +663,9 @@ def _one_qubit_run(data, pos: int, index: dict) -> int:
 _LAYER_GROUP = 4
 
 
-def _apply_one_qubit_layer(state: _State, run, index: dict) -> None:
-    """One-qubit gates on distinct qubits commute: multiply each qubit's gates, expand fresh qubits
-    directly to u|0⟩, and apply the rest as Kronecker products over groups of adjacent axes."""
-    per_qubit: dict[int, np.ndarray] = {}
-    for inst in run:
-        q = index[inst.qubits[0]]
-        u = _matrix_of(inst.operation)
-        per_qubit[q] = u @ per_qubit[q] if q in per_qubit else u
+def _apply_one_qubit_layer(state: _State, per_qubit: dict[int, np.ndarray]) -> None:
+    """One-qubit gates on distinct qubits commute: expand fresh qubits directly to u|0⟩, and apply
+    the rest as Kronecker products over groups of adjacent axes."""
     stored = [q for q in per_qubit if q in state.order]
     fresh = [q for q in per_qubit if q not in state.order]
     if fresh:
