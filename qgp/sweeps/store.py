@@ -447,7 +447,11 @@ class ResultStore:
                 )
             con.execute("COMMIT")
         except BaseException:
-            con.execute("ROLLBACK")
+            # A SIGTERM (raised as an exception by the sweep's handler) can land just after the
+            # COMMIT went through: then there is nothing to roll back, and trying would replace
+            # the interrupt with an OperationalError.
+            if con.in_transaction:
+                con.execute("ROLLBACK")
             raise
         return changed
 
