@@ -66,12 +66,17 @@ class MultiplexerGate(Gate):
     """
 
     def __init__(self, matrices, label: str | None = None):
-        mats = [np.ascontiguousarray(m, dtype=complex) for m in matrices]
-        n_ctrl = len(mats).bit_length() - 1
-        if len(mats) != 1 << n_ctrl or not mats or mats[0].shape[0] != mats[0].shape[1]:
+        # One contiguous (K, d, d) array; the parameters are views of its blocks (no second copy).
+        try:
+            stack = np.ascontiguousarray(np.asarray(matrices, dtype=complex))
+        except ValueError:
+            raise QgpError("a multiplexer needs 2^k square matrices of one size") from None
+        n_ctrl = len(stack).bit_length() - 1
+        if stack.ndim != 3 or len(stack) != 1 << n_ctrl or stack.shape[1] != stack.shape[2]:
             raise QgpError("a multiplexer needs 2^k square matrices of one size")
-        n_target = mats[0].shape[0].bit_length() - 1
-        super().__init__("multiplexer", n_target + n_ctrl, mats, label=label)
+        n_target = stack.shape[1].bit_length() - 1
+        super().__init__("multiplexer", n_target + n_ctrl, list(stack), label=label)
+        self.stack = stack
 
     def validate_parameter(self, parameter):
         return parameter  # matrices, passed to Aer as they are

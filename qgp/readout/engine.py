@@ -240,8 +240,9 @@ class _State:
         view = self.t.reshape(view_shape)
         view *= dt.reshape(d_shape)
 
-    def multiplexer(self, stack: np.ndarray, targets: list[int], controls: list[int]) -> None:
-        """Σ_k |k⟩⟨k|_controls ⊗ U_k (k little-endian over ``controls``)."""
+    def multiplexer(self, stack: np.ndarray, targets: list[int], controls: list[int], identity=None) -> None:
+        """Σ_k |k⟩⟨k|_controls ⊗ U_k (k little-endian over ``controls``); ``identity[k]`` marks
+        blocks that are the identity (copied, not multiplied: half the work of a controlled power)."""
         if len(targets) == 1 and targets[0] not in self.order:
             self._conditioned_expand(stack[:, :, 0], targets[0], controls)
             return
@@ -256,14 +257,14 @@ class _State:
             shape = self.t.shape
             view = self.t.reshape(-1, K, T).transpose(1, 0, 2)
             out = self._scratch(shape)
-            np.matmul(view, stack.transpose(0, 2, 1), out=out.reshape(-1, K, T).transpose(1, 0, 2))
+            _blocks(view, stack, out.reshape(-1, K, T).transpose(1, 0, 2), identity)
             self.t = out
             return
         self._arrange(cgroup, tgroup)
         shape = self.t.shape
         view = self.t.reshape(K, -1, T)
         out = self._scratch(view.shape)
-        np.matmul(view, stack.transpose(0, 2, 1), out=out)
+        _blocks(view, stack, out, identity)
         self.t = out.reshape(shape)
 
     def _conditioned_expand(self, columns: np.ndarray, target: int, controls: list[int]) -> None:
@@ -407,7 +408,7 @@ def simulate(
         for step in program.steps:
             kind = step[0]
             if kind == "mux":
-                state.multiplexer(step[1], step[2], step[3])
+                state.multiplexer(step[1], step[2], step[3], step[4])
             elif kind == "layer":
                 _apply_one_qubit_layer(state, step[1])
             elif kind == "fft":
@@ -492,7 +493,7 @@ def _compile(circuit: QuantumCircuit) -> _Program:
                 continue
         if name == "multiplexer":
             stack, targets, controls, length = _merged_multiplexers(data, pos, index)
-            steps.append(("mux", stack, targets, controls))
+            steps.append(("mux", stack, targets, controls, _identity_blocks(stack)))
             pos += length
             continue
         if len(qs) == 1 and name not in _DIAGONAL_NAMES and name not in ("x", "save_statevector", "barrier"):
@@ -565,7 +566,7 @@ def _fuse_conditioned(steps: list[tuple]) -> list[tuple]:
                 else:
                     base |= ((k >> controls.index(q)) & 1) << pos_
             U = np.stack([d[base], d[base | tbit]], axis=1)[:, :, None] * U
-        out.append(("mux", U, [target], controls))
+        out.append(("mux", U, [target], controls, None))
         i = j
     return out
 
@@ -606,7 +607,8 @@ _MAX_MERGED_BYTES = 1 << 26
 
 
 def _stack_of(op) -> np.ndarray:
-    return np.asarray(op.params, dtype=complex)
+    stack = getattr(op, "stack", None)  # qgp's MultiplexerGate keeps its blocks as one array
+    return stack if stack is not None else np.asarray(op.params, dtype=complex)
 
 
 def _merged_multiplexers(data, pos: int, index: dict) -> tuple[np.ndarray, list[int], list[int], int]:
@@ -614,25 +616,77 @@ def _merged_multiplexers(data, pos: int, index: dict) -> tuple[np.ndarray, list[
     with other controls: Σ_k |k⟩⟨k| ⊗ U_k then Σ_l |l⟩⟨l| ⊗ V_l is Σ_(k,l) |k,l⟩⟨k,l| ⊗ V_l·U_k, one
     pass instead of two (products of the circuit's own blocks, up to `_MAX_MERGED_BYTES`)."""
     first = data[pos]
-    stack = _stack_of(first.operation)
-    n_t = stack.shape[1].bit_length() - 1
+    n_t = first.operation.params[0].shape[0].bit_length() - 1
     qs = [index[q] for q in first.qubits]
     targets, controls = qs[:n_t], qs[n_t:]
+    blocks = len(first.operation.params)
+    block_bytes = first.operation.params[0].nbytes
+    # Merging saves a pass over the state but reads a larger stack: merge while the stack stays
+    # no larger than the state (and `_MAX_MERGED_BYTES`).
+    limit = min(_MAX_MERGED_BYTES, 16 * 2 ** len(index))
+    ops = [first.operation]
     length = 1
     while pos + length < len(data):
         nxt = data[pos + length]
         if nxt.operation.name != "multiplexer":
             break
-        other = _stack_of(nxt.operation)
         oq = [index[q] for q in nxt.qubits]
-        if other.shape[1] != stack.shape[1] or oq[:n_t] != targets or set(oq[n_t:]) & set(controls):
+        if nxt.operation.params[0].shape != first.operation.params[0].shape or oq[:n_t] != targets:
             break
-        if stack.shape[0] * other.shape[0] * stack[0].nbytes > _MAX_MERGED_BYTES:
+        if set(oq[n_t:]) & set(controls) or blocks * len(nxt.operation.params) * block_bytes > limit:
             break
-        # New control index = k + K·l (the new controls are more significant).
-        stack = np.matmul(other[:, None], stack[None]).reshape(-1, *stack.shape[1:])
+        blocks *= len(nxt.operation.params)
         controls = controls + oq[n_t:]
+        ops.append(nxt.operation)
         length += 1
+    if len(ops) == 1 and controls == sorted(controls):
+        return _stack_of(ops[0]), targets, controls, 1
+    key = (tuple(id(op) for op in ops), tuple(sorted(range(len(controls)), key=controls.__getitem__)))
+    with _PROGRAMS_LOCK:
+        hit = _STACKS.get(key)
+        if hit is not None:
+            _STACKS.move_to_end(key)
+            return hit[1], targets, sorted(controls), length
+    stack = _stack_of(ops[0])
+    for op in ops[1:]:
+        # New control index = k + K·l (the new controls are more significant).
+        stack = np.matmul(_stack_of(op)[:, None], stack[None]).reshape(-1, *stack.shape[1:])
+    stack = _sorted_controls(stack, controls)
+    with _PROGRAMS_LOCK:
+        _STACKS[key] = (ops, stack)  # the ops are held so their ids are not reused
+        while len(_STACKS) > _PROGRAMS_SIZE:
+            _STACKS.popitem(last=False)
+    return stack, targets, sorted(controls), length
+
+
+def _blocks(view: np.ndarray, stack: np.ndarray, out: np.ndarray, identity) -> None:
+    """out[k] = view[k]·stack[k]ᵀ for every k (view, out: (K, rows, T)); identity blocks copied."""
+    if identity is None:
+        np.matmul(view, stack.transpose(0, 2, 1), out=out)
+        return
+    for k in range(stack.shape[0]):
+        if identity[k]:
+            out[k] = view[k]
+        else:
+            np.matmul(view[k], stack[k].T, out=out[k])
+
+
+def _identity_blocks(stack: np.ndarray) -> np.ndarray | None:
+    """Which blocks are exactly the identity (None when none is, or when there are too many to loop)."""
+    if stack.shape[0] > 64:
+        return None
+    eye = np.eye(stack.shape[1], dtype=stack.dtype)
+    mask = np.array([np.array_equal(b, eye) for b in stack])
+    return mask if mask.any() else None
+
+
+#: Merged (and control-sorted) multiplexer stacks, keyed by the ids of the merged operations:
+#: the per-point circuits of one inference share their phase-estimation body's operations.
+_STACKS: OrderedDict = OrderedDict()
+
+
+def _sorted_controls(stack: np.ndarray, controls: list[int]) -> np.ndarray:
+    """``stack`` re-indexed so that its controls run in ascending qubit order."""
     if controls != sorted(controls):
         # Relabel k so that the controls run in ascending qubit order (as they lie in the state).
         nc, T = len(controls), stack.shape[1]
@@ -641,8 +695,7 @@ def _merged_multiplexers(data, pos: int, index: dict) -> tuple[np.ndarray, list[
         stack = np.ascontiguousarray(
             stack.reshape((2,) * nc + (T, T)).transpose([axes_now.index(q) for q in want] + [nc, nc + 1])
         ).reshape(-1, T, T)
-        controls = sorted(controls)
-    return stack, targets, controls, length
+    return stack
 
 
 def _one_qubit_run(data, pos: int, index: dict) -> int:
