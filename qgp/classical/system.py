@@ -14,6 +14,7 @@ gains only the value d, which lies inside [λmin, λmax].
 
 from __future__ import annotations
 
+import hashlib
 import math
 from dataclasses import asdict, dataclass
 
@@ -23,6 +24,7 @@ import scipy.sparse as sp
 from qgp.errors import QgpError
 
 __all__ = [
+    "matrix_key",
     "SystemDiagnostics",
     "regularise",
     "eigenvalue_bounds",
@@ -176,3 +178,10 @@ def pad_vector(v, size: int) -> np.ndarray:
     out = np.zeros(size, dtype=v.dtype if np.iscomplexobj(v) else float)
     out[: v.shape[0]] = v
     return out
+
+
+def matrix_key(A) -> str:
+    """SHA-256 of a matrix's shape and float64 bytes: the key under which circuits built from it,
+    and their resource counts, are cached."""
+    a = np.ascontiguousarray(A, dtype=float)
+    return hashlib.sha256(repr(a.shape).encode() + a.tobytes()).hexdigest()

@@ -7,7 +7,6 @@ for the amortised strategy, the operators B and M (no simulation at all).
 
 from __future__ import annotations
 
-import hashlib
 import threading
 from collections import OrderedDict
 from dataclasses import replace
@@ -16,6 +15,7 @@ import numpy as np
 from qiskit import QuantumCircuit
 
 from qgp.circuits.inversion import InversionCircuit, build_inversion
+from qgp.classical.system import matrix_key
 from qgp.circuits.phase_estimation import phase_estimation_circuit, phase_oracle
 from qgp.settings import CircuitSettings
 
@@ -41,11 +41,6 @@ def clear_caches() -> None:
         _QPE_BODIES.clear()
 
 
-def _matrix_key(A: np.ndarray) -> str:
-    a = np.ascontiguousarray(A, dtype=float)
-    return hashlib.sha256(repr(a.shape).encode() + a.tobytes()).hexdigest()
-
-
 def cached(cache: OrderedDict, key, make):
     with _CACHE_LOCK:
         if key in cache:
@@ -60,7 +55,7 @@ def cached(cache: OrderedDict, key, make):
 
 
 def inversion_key(A, circuit: CircuitSettings, rotation: str, bounds) -> tuple:
-    return (_matrix_key(A), circuit, rotation, tuple(float(b) for b in bounds), SIMULATED_FORM)
+    return (matrix_key(A), circuit, rotation, tuple(float(b) for b in bounds), SIMULATED_FORM)
 
 
 def cached_pair(A, circuit: CircuitSettings, bounds) -> tuple[InversionCircuit, InversionCircuit]:
