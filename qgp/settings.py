@@ -42,7 +42,7 @@ Evolution = Literal["exact", "trotter", "walk"]
 #: For each ``[circuit] evolution``: whether ``[circuit] encoding`` applies to it (the method's
 #: ``uses_block_encoding``).
 EVOLUTION_USES_BLOCK_ENCODING: dict[str, bool] = {"exact": False, "trotter": False, "walk": True}
-Strategy = Literal["amortised", "per-point"]
+Strategy = Literal["auto", "amortised", "per-point", "hybrid"]
 #: Statevector engine: numpy where it applies (auto), always numpy, or always qiskit-aer.
 Engine = Literal["auto", "numpy", "aer"]
 Rotation = Literal["inverse", "inverse_sqrt"]
@@ -127,7 +127,7 @@ class ReadoutSettings:
 
     shots: int = 0
     seed: int = 20261202
-    strategy: Strategy = "amortised"
+    strategy: Strategy = "auto"
     memory_cap_bytes: int | None = None
     engine: Engine = "auto"
 

@@ -34,7 +34,7 @@ def test_minimal_config_loads_with_defaults(tmp_path):
     cfg = load_config(_write(tmp_path, BASE + "[noise]\nvariance = 0.1\n"))
     assert cfg.kernel.family == "rbf" and cfg.data.center is True
     assert cfg.circuit.evolution == "walk" and cfg.circuit.encoding == "dilation"
-    assert cfg.readout.shots == 0 and cfg.readout.strategy == "amortised"
+    assert cfg.readout.shots == 0 and cfg.readout.strategy == "auto" and cfg.readout.engine == "auto"
 
 
 @pytest.mark.parametrize(
@@ -49,7 +49,7 @@ def test_minimal_config_loads_with_defaults(tmp_path):
         ("[noise]\nvariance = 0.1\n[circuit]\nclock_qubits = 0\n", "clock_qubits must be ≥ 1"),
         ("[noise]\nvariance = 0.1\n[circuit]\nclock_qubits = 2.5\n", "clock_qubits must be a whole number"),
         ("[noise]\nvariance = 0.1\n[circuit]\nevolution = 'exact'\nencoding = 'lcu'\n", "applies only to evolution"),
-        ("[noise]\nvariance = 0.1\n[readout]\nstrategy = 'fast'\n", "must be one of 'amortised', 'per-point'"),
+        ("[noise]\nvariance = 0.1\n[readout]\nstrategy = 'fast'\n", "must be one of 'auto', 'amortised', 'per-point', 'hybrid'"),
         ("[noise]\nvariance = 0.1\n[readout]\nshots = -5\n", "shots must be ≥ 0"),
         ("[noise]\ntarget_condition = 1.0\n", "target_condition must be > 1"),
         ("", "\\[noise\\] needs variance"),

@@ -87,6 +87,9 @@ class InferenceResult:
     operators: CircuitOperators | None
     #: Which statevector engine ran ("numpy", "aer", "numpy+aer"; qgp.readout.simulate).
     engine: str
+    #: The strategy that ran (``readout.strategy``, or what "auto" chose) and why.
+    strategy: str
+    strategy_reason: str
     elapsed_seconds: float
     timings: dict = field(default_factory=dict)
     #: The simulator runs behind the numbers: dicts with ``what``, ``qubits``, ``runs``,
@@ -134,7 +137,8 @@ class InferenceResult:
             "evolution": self.circuit.evolution,
             "shots": self.readout.shots,
             "seed": self.readout.seed,
-            "strategy": self.readout.strategy,
+            "strategy": self.strategy,
+            "strategy_reason": self.strategy_reason,
             "simulated_form": SIMULATED_FORM,
             "engine": self.engine,
             "prior_mean": p.y_offset,
@@ -262,7 +266,7 @@ def _estimates_with_shots(inp: StrategyInputs, out: Outcomes, y_norm: float, k_n
     if readout.shots == 0:
         return exact, None
     say(f"sampling {readout.shots} shots per test point (seed {readout.seed})")
-    n0, n1, nf = STRATEGIES[readout.strategy].counts(inp, out)
+    n0, n1, nf = STRATEGIES[inp.plan.strategy].counts(inp, out)
     est = _shot_estimates(problem, inp.inverse, inp.inverse_sqrt, n0, n1, nf, readout.shots)
     return exact, (est, int(np.sum(readout.shots - n0 - n1)))
 
@@ -348,7 +352,7 @@ def infer(
     t0 = time.perf_counter()
     sim_times: dict[str, float] = {"transpile": 0.0, "simulate": 0.0}
     with engine_scope(readout.engine) as used:
-        out = STRATEGIES[readout.strategy].outcomes(inp, sim_times, say)
+        out = STRATEGIES[plan.strategy].outcomes(inp, sim_times, say)
         elapsed = time.perf_counter() - t0
     # "transpile": preparing circuits for Aer (nothing for the native simulation form);
     # "simulate": the rest of this stage — circuit assembly, the simulator jobs, reading results.
@@ -388,6 +392,8 @@ def infer(
         filter_model_max_abs_difference=_model_difference(inp, out),
         operators=out.operators,
         engine=engines_used(used),
+        strategy=plan.strategy,
+        strategy_reason=plan.reason,
         elapsed_seconds=time.perf_counter() - t_start,
         timings=timings,
         simulation_runs=out.runs,

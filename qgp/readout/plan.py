@@ -30,11 +30,14 @@ __all__ = [
     "block_register",
     "lcu_block_qubits",
     "plan_runs",
+    "hybrid_runs",
+    "estimated_seconds",
     "simulation_plan",
     "check_clock_qubits",
 ]
 
-STRATEGIES = ("amortised", "per-point")
+#: The strategies a run can make (``[readout] strategy`` also takes "auto": the cheapest that fits).
+STRATEGIES = ("amortised", "per-point", "hybrid")
 
 # What each per-point run is (the ``what`` of the plan and of `InferenceResult.summary`'s
 # ``simulation_runs``); the amortised runs' are in qgp.readout.estimators.
@@ -44,6 +47,19 @@ PER_POINT_HADAMARD = "Hadamard test of k̂ᵀÃ⁻¹k̂ (probe qubit): one circu
 PER_POINT_SUCCESS = "inversion of ŷ (success probability of the inversion): one circuit"
 PER_POINT_MEAN_SHOTS = "measured Hadamard test of the mean, shots drawn by Aer: one circuit per test point"
 PER_POINT_VARIANCE_SHOTS = "measured variance circuit, shots drawn by Aer: one circuit per test point"
+HYBRID_MEAN = "inversion of ŷ, post-selected output read (every test point's mean from it): one circuit"
+HYBRID_VARIANCE = "variance circuit (inverse_sqrt on k̂, flag read): one circuit per test point"
+HYBRID_HADAMARD = "inversion of k̂, post-selected output read (k̂ᵀÃ⁻¹k̂): one circuit per test point"
+
+# The cost model of "auto" (seconds of one run on q qubits with a d-dimensional system (and block)
+# register): a fixed overhead, a per-amplitude cost of the fused passes and the arithmetic of the
+# controlled powers (two stages of dense d × d blocks, 8·d flops per amplitude each). Measured here
+# with the numpy engine (qgp bench, floor figures): 14 ms for the 17-qubit reference run at d = 16,
+# 2.2 s for one 24-qubit inversion (1.1–1.3e-7 s per amplitude); the flop rate is a sustained
+# batched-product rate of ~50 GFlop/s. Only the ratios between strategies matter for the choice.
+_RUN_OVERHEAD_SECONDS = 2e-3
+_SECONDS_PER_AMPLITUDE = 1.2e-7
+_FLOPS_PER_SECOND = 5e10
 
 
 def check_clock_qubits(settings: CircuitSettings) -> None:
@@ -219,6 +235,25 @@ def plan_runs(
     return amortised, reference, tuple(per_point)
 
 
+def hybrid_runs(system_qubits: int, clock_qubits: int, block_qubits: int, n_test: int, cap: int) -> tuple[SimulationRun, ...]:
+    """Runs of the hybrid strategy: the inversion of ŷ once (every mean), then per test point the
+    variance circuit and the inversion of k̂ (one statevector each, read as it returns)."""
+    q = int(system_qubits) + int(clock_qubits) + 1 + int(block_qubits)
+    b = statevector_bytes(q)
+    return (
+        SimulationRun(HYBRID_MEAN, q, 1, b, 1, None, b <= cap),
+        SimulationRun(HYBRID_VARIANCE, q, 1, b, n_test, None, b <= cap),
+        SimulationRun(HYBRID_HADAMARD, q, 1, b, n_test, None, b <= cap),
+    )
+
+
+def estimated_seconds(runs: tuple[SimulationRun, ...], system_qubits: int, block_qubits: int) -> float:
+    """The cost model of "auto" (a model, not a measurement; see the constants above)."""
+    d = 2 ** (int(system_qubits) + int(block_qubits))
+    per_amplitude = _SECONDS_PER_AMPLITUDE + 2 * 8 * d / _FLOPS_PER_SECOND
+    return sum(r.runs * (_RUN_OVERHEAD_SECONDS + 2**r.qubits * per_amplitude) for r in runs)
+
+
 @dataclass(frozen=True)
 class SimulationPlan:
     """Every simulation a run makes, per strategy, against the memory cap."""
@@ -233,9 +268,18 @@ class SimulationPlan:
     reference_qubits: int | None  # amortised: None = one run with the saved state; r′ = split
     n_test: int = 0
     shots: int = 0
+    hybrid: tuple[SimulationRun, ...] = ()
+    #: What the config asked for ("auto" or a strategy) and why ``strategy`` is the one that runs.
+    requested: str = ""
+    reason: str = ""
 
     def runs(self, strategy: str | None = None) -> tuple[SimulationRun, ...]:
-        return self.amortised if (strategy or self.strategy) == "amortised" else self.per_point
+        s = strategy or self.strategy
+        return {"amortised": self.amortised, "per-point": self.per_point, "hybrid": self.hybrid}[s]
+
+    def estimated_seconds(self, strategy: str | None = None) -> float:
+        """The cost model's seconds for the strategy's simulations (`estimated_seconds`)."""
+        return estimated_seconds(self.runs(strategy), self.system_qubits, self.block.qubits)
 
     def fits(self, strategy: str | None = None) -> bool:
         s = strategy or self.strategy
@@ -256,15 +300,17 @@ class SimulationPlan:
         if failing:
             run = min(failing, key=lambda r: r.bytes)  # the smallest form it could take
             bound = ", block register at its upper bound" if self.block.is_bound else ""
-            other = "per-point" if self.strategy == "amortised" else "amortised"
+            others = [s for s in STRATEGIES if s != self.strategy and self.fits(s)]
             hint = ""
-            if self.fits(other):
-                hint = f"; [readout] strategy = \"{other}\" would fit"
+            if others:
+                hint = f"; [readout] strategy = \"{others[0]}\" would fit"
             elif self.block.pauli_terms is not None:  # the LCU: would the dilation's one block qubit fit?
                 amortised, _, per_point = plan_runs(
                     self.system_qubits, self.clock_qubits, 1, self.n_test, self.memory_cap_bytes, shots=self.shots
                 )
-                if all(r.fits for r in (amortised if self.strategy == "amortised" else per_point)):
+                hybrid = hybrid_runs(self.system_qubits, self.clock_qubits, 1, self.n_test, self.memory_cap_bytes)
+                mine = {"amortised": amortised, "per-point": per_point, "hybrid": hybrid}[self.strategy]
+                if all(r.fits for r in mine):
                     hint = '; [circuit] encoding = "dilation" (one block qubit) would fit'
             try:
                 require_memory(
@@ -276,14 +322,36 @@ class SimulationPlan:
     def as_dict(self) -> dict:
         return {
             "strategy": self.strategy,
+            "requested": self.requested or self.strategy,
+            "reason": self.reason,
             "memory_cap_bytes": self.memory_cap_bytes,
             "amortised": [r.as_dict() for r in self.amortised],
             "per-point": [r.as_dict() for r in self.per_point],
+            "hybrid": [r.as_dict() for r in self.hybrid],
             "fits": {s: self.fits(s) for s in STRATEGIES},
+            "estimated_seconds": {s: self.estimated_seconds(s) for s in STRATEGIES},
             "block_qubits_is_bound": self.block.is_bound,
             "note": "bytes: 16·2^q per statevector (complex128) held at once, plus the operators B and M "
             "(16·n² each) read from amortised runs; per-point circuits run in jobs batched under the cap",
         }
+
+
+def _resolve(plan: SimulationPlan, requested: str) -> SimulationPlan:
+    """``plan`` with its strategy: the requested one, or under "auto" the cheapest by the cost
+    model among those that fit (amortised when none fits: the guard then says what would)."""
+    from dataclasses import replace
+
+    if requested != "auto":
+        return replace(plan, strategy=requested, reason=f"[readout] strategy = \"{requested}\"")
+    cost = {s: plan.estimated_seconds(s) for s in STRATEGIES}
+    fitting = [s for s in STRATEGIES if plan.fits(s)]
+    if not fitting:
+        return replace(plan, strategy="amortised", reason="auto: no strategy fits under the memory cap")
+    chosen = min(fitting, key=lambda s: cost[s])
+    others = ", ".join(
+        f"{s} {cost[s]:.2g} s" + ("" if s in fitting else " (does not fit)") for s in STRATEGIES if s != chosen
+    )
+    return replace(plan, strategy=chosen, reason=f"auto: {chosen}, estimated {cost[chosen]:.2g} s of simulation, against {others} (cost model, qgp.readout.plan)")
 
 
 def simulation_plan(
@@ -310,7 +378,12 @@ def simulation_plan(
 
     def build(block: BlockRegister) -> SimulationPlan:
         amortised, reference, per_point = plan_runs(m, c, block.qubits, n_test, cap, shots=readout.shots)
-        return SimulationPlan(readout.strategy, cap, m, c, block, amortised, per_point, reference, n_test, readout.shots)
+        hybrid = hybrid_runs(m, c, block.qubits, n_test, cap)
+        plan = SimulationPlan(
+            "amortised", cap, m, c, block, amortised, per_point, reference, n_test, readout.shots, hybrid,
+            requested=readout.strategy,
+        )
+        return _resolve(plan, readout.strategy)
 
     if block_qubits is not None:
         return build(BlockRegister(int(block_qubits)))

@@ -14,7 +14,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from qgp.circuits.inversion import InversionCircuit, postselected_system_amplitudes
+from qgp.circuits.inversion import InversionCircuit, postselected_system_amplitudes, statevector_array
 from qgp.classical.problem import Problem
 from qgp.readout.builds import OPERATORS, cached, inversion_key, qpe_body, with_preparation
 from qgp.readout.estimators import (
@@ -26,6 +26,7 @@ from qgp.readout.estimators import (
     per_point_probabilities,
     sample_hadamard,
     sample_variance,
+    variance_circuit,
     variance_probabilities,
 )
 from qgp.readout.plan import SimulationPlan
@@ -80,7 +81,9 @@ def _amortised(inp: StrategyInputs, sim_times: dict, say: Progress) -> Outcomes:
             f"{inp.problem.system_qubits + inp.inverse.circuit.num_qubits} qubits with a saved state does not fit "
             f"under the memory cap of {inp.cap / 2**30:.3g} GiB"
         )
-    key = inversion_key(inp.A, inp.circuit, "operators" if ref is None else f"operators-split-{ref}", inp.bounds)
+    # The engine is part of the key: a run asked of one engine never reports another's operators.
+    what = "operators" if ref is None else f"operators-split-{ref}"
+    key = inversion_key(inp.A, inp.circuit, f"{what}-{inp.readout.engine}", inp.bounds)
     made: list[bool] = []
 
     def simulate_operators():
@@ -145,6 +148,53 @@ def _per_point_counts(inp: StrategyInputs, out: Outcomes) -> tuple[np.ndarray, n
     )
 
 
+def _hybrid(inp: StrategyInputs, sim_times: dict, say: Progress) -> Outcomes:
+    """The mean of every test point from one run of the inversion on ŷ (its post-selected output
+    v ≈ C·Ã⁻¹ŷ gives each point's Hadamard-test probabilities with k̂*, as in the amortised
+    strategy); per test point the variance circuit (P(flag = 1)) and the inversion of k̂*
+    (k̂*ᵀÃ⁻¹k̂*, the Hadamard-test form of the variance). 1 + 2·n_test runs of the inversion's width."""
+    n_test = inp.problem.n_test
+    say(f"simulating the inversion of ŷ once and {2 * n_test} per-point circuits (hybrid)")
+    inv, inv_sqrt = inp.inverse, inp.inverse_sqrt
+
+    def output(i, sv, prep):
+        return postselected_system_amplitudes(sv, prep)
+
+    mean_prep = with_preparation(inv, inp.yhat)
+    [v] = run_statevectors([mean_prep.circuit], cap=inp.cap, timings=sim_times, reduce=lambda i, sv: output(i, sv, mean_prep))
+    p0, p1 = hadamard_probabilities(v, inp.khat)
+    var_circuits = [variance_circuit(inv_sqrt.circuit, inp.khat[:, j]) for j in range(n_test)]
+    p_flag = np.array(
+        run_statevectors(
+            var_circuits,
+            cap=inp.cap,
+            timings=sim_times,
+            reduce=lambda i, sv: float(np.sum(np.abs(statevector_array(sv, inv_sqrt)[:, 1]) ** 2)),
+        )
+    )
+    preps = [with_preparation(inv, inp.khat[:, j]) for j in range(n_test)]
+    hadamard_kk = np.array(
+        run_statevectors(
+            [p.circuit for p in preps],
+            cap=inp.cap,
+            timings=sim_times,
+            reduce=lambda i, sv: float(np.real(inp.khat[:, i] @ postselected_system_amplitudes(sv, preps[i]))),
+        )
+    )
+    return Outcomes(
+        p0=p0,
+        p1=p1,
+        p_flag=p_flag,
+        hadamard_kk=hadamard_kk,
+        success_probability_inversion=float(np.sum(np.abs(v) ** 2)),
+        operators=None,
+        runs=tuple(
+            {"what": r.what, "qubits": r.qubits, "runs": r.runs, "columns_per_run": None, "from_cache": False}
+            for r in inp.plan.hybrid
+        ),
+    )
+
+
 @dataclass(frozen=True)
 class Strategy:
     """A read-out strategy: exact outcome probabilities, and counts of ``readout.shots`` shots."""
@@ -156,4 +206,5 @@ class Strategy:
 STRATEGIES: dict[str, Strategy] = {
     "amortised": Strategy(outcomes=_amortised, counts=_amortised_counts),
     "per-point": Strategy(outcomes=_per_point, counts=_per_point_counts),
+    "hybrid": Strategy(outcomes=_hybrid, counts=_amortised_counts),
 }

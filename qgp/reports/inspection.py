@@ -49,7 +49,7 @@ SIMULATION_CAVEAT = (
 def simulation_rows(info: dict) -> list[tuple[str, str]]:
     """Table rows (label, text) of `inspect_problem`'s ``simulations`` for ``qgp inspect``."""
     sims = info["simulations"]
-    rows = [("memory cap", _size(sims["memory_cap_bytes"]))]
+    rows = [("memory cap", _size(sims["memory_cap_bytes"])), ("strategy", sims["reason"])]
     for s in STRATEGIES:
         runs = sims[s]
         chosen = " (chosen)" if s == sims["strategy"] else ""
@@ -71,7 +71,8 @@ def simulation_rows(info: dict) -> list[tuple[str, str]]:
                 f"{sum(r['runs'] for r in runs)} circuits, up to {widest['qubits']} qubits, {_size(widest['bytes'])} each "
                 "(jobs batched under the cap)"
             )
-        rows.append((f"{s} simulation{chosen}", f"{verdict}: {text}"))
+        est = sims["estimated_seconds"][s]
+        rows.append((f"{s} simulation{chosen}", f"{verdict}: {text}; cost model ~{est:.2g} s"))
     lcu = info.get("pauli_decomposition")
     if lcu is not None:
         terms = f"≤ {lcu['pauli_terms']:,} (upper bound)" if lcu["pauli_terms_is_bound"] else f"{lcu['pauli_terms']:,}"

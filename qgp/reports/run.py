@@ -129,13 +129,27 @@ def provenance(result: InferenceResult) -> dict[str, str]:
     The `summary.json` key ``provenance``; docs/method.md ("What is simulated") explains it.
     """
     shots = result.readout.shots
-    if result.readout.strategy == "amortised":
+    # Statevectors come from the numpy engine when it ran (shot counts are always Aer's).
+    sv = "numpy-engine" if "numpy" in result.engine else "Aer"
+    if result.strategy == "hybrid":
         out = {
-            "mean_quantum": "Aer statevector run of the `inverse` circuit with a reference register entangled with "
+            "mean_quantum": f"{sv} statevector run of the `inverse` circuit on ŷ (one run): its post-selected output "
+            "v ≈ C·Ã⁻¹ŷ; each test point's Hadamard-test probabilities P₀, P₁ are then computed in numpy from v and k̂* "
+            "(the Hadamard-test circuit itself is not simulated)",
+            "variance_quantum": f"{sv} statevector run of one `inverse_sqrt` circuit per test point on k̂*; "
+            "P(flag = 1) read from each final statevector",
+            "variance_quantum_hadamard": f"{sv} statevector run of the `inverse` circuit on each k̂*; k̂*ᵀ·(its "
+            "post-selected output)",
+            "success_probability_inversion": "numpy, from the same run on ŷ: ‖v‖²",
+        }
+        sampled = "numpy (np.random.Generator seeded with [readout] seed) from the exact outcome probabilities"
+    elif result.strategy == "amortised":
+        out = {
+            "mean_quantum": f"{sv} statevector run of the `inverse` circuit with a reference register entangled with "
             "`system` (one run, or one per block of reference columns when split for memory; see simulation_runs): "
             "it yields the post-selected operator B ≈ C·Ã⁻¹; each test point's Hadamard-test probabilities P₀, P₁ "
             "are then computed in numpy from B·ŷ and k̂* (the Hadamard-test circuit itself is not simulated)",
-            "variance_quantum": "the same Aer run saves the state just before the flag rotation; the `inverse_sqrt` "
+            "variance_quantum": f"the same {sv} run saves the state just before the flag rotation; the `inverse_sqrt` "
             "rotation is applied to that saved state exactly in numpy (amplitude sin(θ_k/2) on flag = 1), giving "
             "M = E†E and P(flag = 1) = k̂*ᵀMk̂* (the `inverse_sqrt` circuit is not simulated separately); when the "
             "reference register is split, M is read from each run's uncomputed circuit instead (docs/method.md)",
@@ -145,13 +159,13 @@ def provenance(result: InferenceResult) -> dict[str, str]:
         sampled = "numpy (np.random.Generator seeded with [readout] seed) from the exact outcome probabilities"
     else:
         out = {
-            "mean_quantum": "Aer statevector run of one Hadamard-test circuit per test point (probe qubit, "
+            "mean_quantum": f"{sv} statevector run of one Hadamard-test circuit per test point (probe qubit, "
             "ŷ and k̂* prepared, the `inverse` circuit); P₀, P₁ read from each final statevector",
-            "variance_quantum": "Aer statevector run of one `inverse_sqrt` circuit per test point on k̂*; P(flag = 1) "
+            "variance_quantum": f"{sv} statevector run of one `inverse_sqrt` circuit per test point on k̂*; P(flag = 1) "
             "read from each final statevector",
-            "variance_quantum_hadamard": "Aer statevector run of one Hadamard-test circuit per test point with k̂* "
+            "variance_quantum_hadamard": f"{sv} statevector run of one Hadamard-test circuit per test point with k̂* "
             "on both sides",
-            "success_probability_inversion": "Aer statevector run of the `inverse` circuit on ŷ",
+            "success_probability_inversion": f"{sv} statevector run of the `inverse` circuit on ŷ",
         }
         sampled = "Aer (measured circuits, one job, seeded with [readout] seed)"
     out["shots"] = f"counts drawn by {sampled}" if shots > 0 else "none: exact outcome probabilities (shots = 0)"
@@ -200,25 +214,30 @@ def config_inputs(cfg: Config) -> list[Path]:
     return [Path(f) for f in files if f is not None]
 
 
-def run_config(cfg: Config, out: Path, *, overwrite: bool = False, quiet: bool = False) -> tuple[dict, Path]:
+def run_config(
+    cfg: Config, out: Path, *, overwrite: bool = False, quiet: bool = False, figures: bool = True
+) -> tuple[dict, Path]:
     """`qgp run`: problem → inference → predictions.csv, summary.json, figures/ in ``out``.
 
     Before any work, refuses to replace any file a run writes (not only an earlier run's) unless
     ``overwrite``; every file is written atomically (temporary name, then rename), and summary.json
-    last, so a folder with a summary.json holds a complete run.
+    last, so a folder with a summary.json holds a complete run. ``figures=False`` (``--no-figures``)
+    skips the figures (and never touches figures/).
     """
     from qgp.reports.figures import run_figures
     from qgp.readout.inference import infer
     from qgp.classical.problem import problem_from_config
 
-    out = check_outputs(out, run_outputs(), force=overwrite, inputs=config_inputs(cfg))
+    outputs = run_outputs() if figures else tuple(f for f in run_outputs() if not f.startswith(FIGURES_DIR + "/"))
+    out = check_outputs(out, outputs, force=overwrite, inputs=config_inputs(cfg))
     problem = problem_from_config(cfg)
     result = infer(problem, cfg.circuit, cfg.readout, progress=None if quiet else _progress)
     out.mkdir(parents=True, exist_ok=True)
     write_predictions(result, out / PREDICTIONS_FILE)
-    if not quiet:
-        _progress("drawing figures")
-    run_figures(result, out / FIGURES_DIR)
+    if figures:
+        if not quiet:
+            _progress("drawing figures")
+        run_figures(result, out / FIGURES_DIR)
     doc = write_summary(result, out / SUMMARY_FILE, cfg)
     return doc, out
 

@@ -63,6 +63,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--out", type=Path, required=True, help="output folder (created if missing; files of the same names are never replaced without --force)")
     p.add_argument("--force", action="store_true", help="overwrite predictions.csv, summary.json, COLUMNS.txt and figures/ in --out")
     p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    p.add_argument("--no-figures", action="store_true", help="write predictions.csv and summary.json only (no figures/)")
     p.set_defaults(handler=_cmd_run)
 
     p = sub.add_parser(
@@ -211,17 +212,21 @@ def _cmd_inspect(args) -> int:
     return 0
 
 
-def _run_to(cfg_path: Path, out: Path, *, force: bool, quiet: bool):
+def _run_to(cfg_path: Path, out: Path, *, force: bool, quiet: bool, figures: bool = True):
     from qgp.config import load_config
     from qgp.reports.run import run_config
 
     cfg = load_config(cfg_path)
-    return run_config(cfg, out, overwrite=force, quiet=quiet)
+    return run_config(cfg, out, overwrite=force, quiet=quiet, figures=figures)
 
 
 def _cmd_run(args) -> int:
-    doc, out = _run_to(_resolve_config(args), args.out, force=args.force, quiet=args.quiet)
-    print(f"wrote {out / 'predictions.csv'}, {out / 'summary.json'} and {out / 'figures'}/")
+    figures = not args.no_figures
+    doc, out = _run_to(_resolve_config(args), args.out, force=args.force, quiet=args.quiet, figures=figures)
+    print(
+        f"wrote {out / 'predictions.csv'}, {out / 'summary.json'}"
+        + (f" and {out / 'figures'}/" if figures else " (no figures: --no-figures)")
+    )
     print(f"mean max |error| {_fmt(doc['mean_max_abs_error'])}, variance max |error| {_fmt(doc['variance_max_abs_error'])}")
     return 0
 

@@ -110,4 +110,4 @@ def test_figure_references_are_checked_against_the_schema():
 
 def test_docs_page_is_the_schema_table():
     page = (ROOT / "docs" / "summary.md").read_text(encoding="utf-8")
-    assert schema_markdown() in page, "docs/summary.md is stale: regenerate its table with schema_markdown()"
+    assert schema_markdown() in page, "docs/summary.md is stale: run python -m qgp.tools.summary_doc"

@@ -94,15 +94,18 @@ def test_plan_qubits_and_bytes_are_the_circuits_built(circuit):
 def test_inspect_and_infer_agree_on_qubits():
     p = _problem()
     circuit = CircuitSettings(clock_qubits=4)
-    for strategy in ("amortised", "per-point"):
+    for strategy in ("amortised", "per-point", "hybrid", "auto"):
         ro = ReadoutSettings(strategy=strategy)
         info = inspect_problem(p, circuit, ro)
         s = infer(p, circuit, ro, progress=None).summary()
         assert info["qubits"]["total"] == s["total_qubits"] and info["qubits"]["block"] == s["block_qubits"]
-        planned = [(r["qubits"], r["runs"], r["columns_per_run"]) for r in info["simulations"][strategy]]
+        ran = s["strategy"]
+        assert ran == strategy or strategy == "auto"
+        planned = [(r["qubits"], r["runs"], r["columns_per_run"]) for r in info["simulations"][ran]]
         made = [(r["qubits"], r["runs"], r["columns_per_run"]) for r in s["simulation_runs"]]
         assert planned == made, (planned, made)
-        assert info["simulations"]["strategy"] == strategy and info["simulations"]["fits"][strategy]
+        assert info["simulations"]["strategy"] == ran and info["simulations"]["fits"][ran]
+        assert info["simulations"]["reason"] == s["strategy_reason"]
         assert planned_qubits(p, circuit, ro) == max(q for q, _, _ in planned)
     json.dumps(info)  # JSON-ready
 
