@@ -1,0 +1,240 @@
+"""`qgp bench`: simulation time against its floor, a large problem end to end, the exact GP's time.
+
+The floor of a circuit is what any statevector simulation of its fused form must spend: for every
+stage that touches the whole state (the controlled powers, the inverse QFT, the rotation, the QFT,
+the inverse powers, the closing Hadamards, each saved state), the larger of its memory traffic (one
+read and one write of the state, at the copy bandwidth measured in this run for a state of that
+size) and its arithmetic (8·d flops per amplitude for a dense d × d block, 5·log₂C per amplitude
+for an FFT of length C — the radix-2 count — at the complex matrix-product rate measured in this
+run). It is a bound, not a prediction: no simulator reaches both rates at once.
+
+A tool (qgp.tools): nothing in the library imports it.
+"""
+
+from __future__ import annotations
+
+import math
+import statistics
+import time
+from collections.abc import Callable
+
+import numpy as np
+
+__all__ = ["machine_rates", "floor_case", "large_n", "classical_times"]
+
+Progress = Callable[[str], None]
+
+
+def machine_rates(state_bytes: int) -> dict:
+    """Copy bandwidth (read + write counted) for a state of ``state_bytes`` (buffers touched
+    before timing; best of 7) and the complex matrix-product rate (zgemm 1024³, best of 3)."""
+    n = max(1, state_bytes // 16)
+    a = np.ones(n, dtype=complex)
+    b = np.ones_like(a)
+    best = math.inf
+    for _ in range(7):
+        t0 = time.perf_counter()
+        np.copyto(b, a)
+        best = min(best, time.perf_counter() - t0)
+    m = np.random.default_rng(0).normal(size=(1024, 1024)) * (1 + 1j)
+    gemm = math.inf
+    for _ in range(3):
+        t0 = time.perf_counter()
+        m @ m
+        gemm = min(gemm, time.perf_counter() - t0)
+    return {"copy_bandwidth_bytes_per_s": 2 * a.nbytes / best, "gemm_flops_per_s": 8 * 1024**3 / gemm}
+
+
+def _stages(qubits: int, system_qubits: int, clock_qubits: int, powers: int, snapshot_saves: int) -> list[dict]:
+    """The whole-state stages of one inversion (see the module docstring)."""
+    amps = 2**qubits
+    dim = 2**system_qubits
+    out = []
+    for name, flops in (
+        ("controlled powers", 8 * dim),
+        ("inverse QFT", 5 * clock_qubits),
+        ("rotation", 6),
+        ("QFT", 5 * clock_qubits),
+        ("inverse controlled powers", 8 * dim),
+        ("closing Hadamards", clock_qubits),
+    ):
+        out.append({"stage": name, "bytes": 2 * 16 * amps, "flops": flops * amps})
+    for i in range(snapshot_saves):
+        out.append({"stage": f"saved state {i + 1}", "bytes": 2 * 16 * amps, "flops": 0})
+    return out
+
+
+def _floor(stages: list[dict], rates: dict) -> float:
+    return sum(
+        max(s["bytes"] / rates["copy_bandwidth_bytes_per_s"], s["flops"] / rates["gemm_flops_per_s"]) for s in stages
+    )
+
+
+def _best(f, repeats: int) -> float:
+    ts = []
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        f()
+        ts.append(time.perf_counter() - t0)
+    return min(ts) if repeats < 3 else statistics.median(ts)
+
+
+def floor_case(kind: str, clock_qubits: int, *, repeats: int = 5, aer_repeats: int = 3, say: Progress = print) -> dict:
+    """Seconds of the numpy engine and of Aer on one case, its floor and the ratios.
+
+    ``kind`` "reference": the amortised reference-register run of the bench problem (n = 16,
+    exact oracle; both saved states returned). "inversion": one inversion with ŷ prepared, the
+    post-selected amplitudes read from the final state (what qgp uses of it).
+    """
+    from qgp.circuits.inversion import build_inversion, postselected_system_amplitudes
+    from qgp.classical.system import eigenvalue_bounds
+    from qgp.readout import engine
+    from qgp.readout.builds import cached_pair
+    from qgp.readout.estimators import _reference_with_snapshot
+    from qgp.readout.inference import unit_inputs
+    from qgp.readout.simulate import engine_scope, run_saved_statevectors, run_statevectors
+    from qgp.tools.bench import _bench_problem, _exact_circuit
+
+    problem = _bench_problem(2)
+    A = problem.A_padded
+    bounds = eigenvalue_bounds(A, problem.noise_variance)
+    circuit = _exact_circuit(clock_qubits)
+    m = problem.system_qubits
+    if kind == "reference":
+        inv, _ = cached_pair(A, circuit, bounds)
+        qc = _reference_with_snapshot(inv)
+        labels = ["phase_estimated", "final"]
+
+        def run(name):
+            with engine_scope(name):
+                return run_saved_statevectors(qc, labels)
+
+        saves = 2
+    else:
+        inv = build_inversion(A, circuit, "inverse", bounds, prepare=unit_inputs(problem)[0], form="simulation")
+        qc = inv.circuit
+
+        def run(name):
+            with engine_scope(name):
+                return run_statevectors([qc], reduce=lambda i, sv: postselected_system_amplitudes(sv, inv))[0]
+
+        saves = 0
+    q = qc.num_qubits
+    say(f"floor: {kind} run on {q} qubits, numpy engine ×{repeats} and Aer ×{aer_repeats}")
+    first = run("numpy")  # warm: buffers touched, imports done
+    reference = run("aer")
+    diff = float(max(np.max(np.abs(np.asarray(a) - np.asarray(b))) for a, b in zip(
+        first if isinstance(first, list) else [first], reference if isinstance(reference, list) else [reference])))
+    t_numpy = _best(lambda: run("numpy"), repeats)
+    t_aer = _best(lambda: run("aer"), aer_repeats)
+    engine.release_buffers()
+    rates = machine_rates(16 * 2**q)
+    stages = _stages(q, m, clock_qubits, 2, saves)
+    floor = _floor(stages, rates)
+    return {
+        "kind": kind,
+        "qubits": q,
+        "clock_qubits": clock_qubits,
+        "system_qubits": m,
+        "passes": len(stages),
+        "floor_seconds": floor,
+        "numpy_seconds": t_numpy,
+        "aer_seconds": t_aer,
+        "numpy_floor_ratio": t_numpy / floor,
+        "aer_floor_ratio": t_aer / floor,
+        "aer_over_numpy": t_aer / t_numpy,
+        "max_abs_difference": diff,
+        "rates": rates,
+        "stages": stages,
+    }
+
+
+def large_n(n_train: int, n_test: int, clock_qubits: int, say: Progress = print) -> dict:
+    """``infer`` end to end (auto strategy and engine) on n_train points of a smooth invented
+    signal, mean and variance at n_test points; seconds, the strategy and engine that ran."""
+    from qgp.classical.kernels import make_kernel
+    from qgp.classical.problem import build_problem
+    from qgp.readout.inference import clear_caches, infer
+    from qgp.settings import CircuitSettings, KernelSpec, ReadoutSettings
+
+    rng = np.random.default_rng(7)
+    X = np.sort(rng.uniform(0.0, 100.0, n_train))[:, None]
+    y = np.sin(X[:, 0] / 9.0) + 0.1 * rng.normal(size=n_train)
+    kernel = make_kernel(KernelSpec(family="rbf", lengthscale=4.0, amplitude=1.0), 1)
+    problem = build_problem(X, y, kernel, target_condition=20.0, X_test=np.linspace(5.0, 95.0, n_test)[:, None])
+    clear_caches()
+    say(f"large problem: n = {n_train}, {n_test} test points, c = {clock_qubits}")
+    t0 = time.perf_counter()
+    result = infer(problem, CircuitSettings(clock_qubits=clock_qubits, evolution="exact"), ReadoutSettings(), progress=None)
+    seconds = time.perf_counter() - t0
+    s = result.summary()
+    return {
+        "n": n_train,
+        "test_points": n_test,
+        "clock_qubits": clock_qubits,
+        "seconds": seconds,
+        "strategy": s["strategy"],
+        "engine": s["engine"],
+        "timings": s["timings"],
+        "mean_max_abs_error": s["mean_max_abs_error"],
+        "variance_max_abs_error": s["variance_max_abs_error"],
+        "simulation_runs": s["simulation_runs"],
+    }
+
+
+def classical_times(problem, repeats: int) -> dict:
+    """Median time of the exact GP from the same matrices (and of qgp.classical.gp with kernel evaluation)."""
+    import scipy.linalg
+
+    from qgp.classical.gp import condition
+
+    A = np.asarray(problem.A)
+    ks = np.asarray(problem.k_star)
+    kss = np.asarray(problem.k_star_star)
+    yc = np.asarray(problem.y_centered)
+    offset = problem.y_offset
+
+    def cholesky():
+        L = scipy.linalg.cholesky(A, lower=True, check_finite=False)
+        alpha = scipy.linalg.cho_solve((L, True), yc, check_finite=False)
+        v = scipy.linalg.solve_triangular(L, ks, lower=True, check_finite=False)
+        return ks.T @ alpha + offset, kss - np.einsum("ij,ij->j", v, v)
+
+    def with_kernels():
+        return condition(problem.X, problem.y, problem.kernel, problem.noise_variance, center=problem.center).predict(
+            problem.X_test
+        )
+
+    def median_time(f):
+        # Sub-millisecond calls: each sample times enough calls to last ≥ 20 ms (timer resolution
+        # and call overhead then stay below 1%), the median of the samples per call.
+        f()
+        loops = 1
+        while True:
+            t0 = time.perf_counter()
+            for _ in range(loops):
+                f()
+            if time.perf_counter() - t0 >= 0.02:
+                break
+            loops *= 2
+        ts = []
+        for _ in range(max(5, repeats // 40)):
+            t0 = time.perf_counter()
+            for _ in range(loops):
+                f()
+            ts.append((time.perf_counter() - t0) / loops)
+        return statistics.median(ts)
+
+    out = {}
+    for name, f in (("cholesky", cholesky), ("qgp_gp", with_kernels)):
+        out[name + "_blas_default"] = median_time(f)
+        out[name + "_blas_1_thread"] = None
+        try:  # a 16 × 16 problem gains nothing from BLAS threads, and waking them can cost ms here
+            from threadpoolctl import threadpool_limits
+
+            with threadpool_limits(1):
+                out[name + "_blas_1_thread"] = median_time(f)
+        except ImportError:
+            pass
+        out[name] = min(v for k, v in out.items() if k.startswith(name + "_") and v is not None)
+    return out
