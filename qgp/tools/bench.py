@@ -522,7 +522,8 @@ def format_table(doc: dict) -> str:
     for key, case in doc["floor"].items():
         rows.append((f"floor_ratio_{key}", f"{_fmt(case['numpy_floor_ratio'])}×", goal(f"floor_ratio_{key}")))
         rows.append((f"  {case['kind']} run, {case['qubits']} qubits", f"{_fmt(case['numpy_seconds'])} s",
-                     f"floor {_fmt(case['floor_seconds'])} s ({case['passes']} whole-state stages); Aer "
+                     f"floor {_fmt(case['floor_seconds'])} s ({case['passes']} whole-state stages); numpy with fresh "
+                     f"buffers {_fmt(case['numpy_cold_seconds'])} s = {_fmt(case['numpy_cold_floor_ratio'])}×; Aer "
                      f"{_fmt(case['aer_seconds'])} s = {_fmt(case['aer_floor_ratio'])}× floor; max |Δ| {_fmt(case['max_abs_difference'])}"))
     ln = f["large_n"]
     rows.append(("large_n", f"{_fmt(ln['seconds'])} s", goal("large_n") + f"; n = {ln['n']}, {ln['test_points']} test "
