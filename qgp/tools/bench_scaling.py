@@ -20,7 +20,6 @@ from collections.abc import Callable
 from pathlib import Path
 from typing import TYPE_CHECKING
 
-import numpy as np
 
 if TYPE_CHECKING:
     from qgp.tools.bench import BenchSettings
@@ -30,19 +29,6 @@ __all__ = ["child_env", "run_scaling"]
 Progress = Callable[[str], None]
 
 # -- 3. simulation scaling (child processes) -------------------------------------------------------
-
-
-def _copy_bandwidth(nbytes: int) -> float:
-    """Bytes per second moved by numpy copying a large array (read + write counted), best of 5."""
-    n = max(1, nbytes // 16)
-    a = np.ones(n, dtype=complex)
-    b = np.empty_like(a)
-    best = math.inf
-    for _ in range(5):
-        t0 = time.perf_counter()
-        np.copyto(b, a)
-        best = min(best, time.perf_counter() - t0)
-    return 2 * a.nbytes / best
 
 
 def _run_case(case: dict) -> dict:
@@ -142,12 +128,12 @@ def run_scaling(s: "BenchSettings", say: Progress) -> dict:
     from qgp.readout.simulate import default_memory_cap, statevector_bytes
     from qgp.tools.bench_floor import _floor, _stages, machine_rates
 
-    rates = machine_rates(1 << 20)
 
     cap = default_memory_cap()
     guard_qubits = int(math.floor(math.log2(cap / 16)))
     say("measuring the memory-copy bandwidth")
-    bandwidth = _copy_bandwidth(min(1 << 29, cap // 4))
+    rates = machine_rates(min(1 << 29, cap // 4))
+    bandwidth = rates["copy_bandwidth_bytes_per_s"]
     system_qubits, flag = 4, 1
     sizes = []
     q = s.scaling_start
