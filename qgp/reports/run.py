@@ -224,7 +224,6 @@ def run_config(
     last, so a folder with a summary.json holds a complete run. ``figures=False`` (``--no-figures``)
     skips the figures (and never touches figures/).
     """
-    from qgp.reports.figures import run_figures
     from qgp.readout.inference import infer
     from qgp.classical.problem import problem_from_config
 
@@ -235,6 +234,8 @@ def run_config(
     out.mkdir(parents=True, exist_ok=True)
     write_predictions(result, out / PREDICTIONS_FILE)
     if figures:
+        from qgp.reports.figures import run_figures  # matplotlib is imported only when figures are drawn
+
         if not quiet:
             _progress("drawing figures")
         run_figures(result, out / FIGURES_DIR)
