@@ -65,6 +65,7 @@ __all__ = [
     "flag_rotation_circuit",
     "eigenvalue_filter",
     "postselected_system_amplitudes",
+    "postselection",
     "flag_probability",
     "statevector_array",
 ]
@@ -396,6 +397,19 @@ def postselected_system_amplitudes(statevector, inv: InversionCircuit) -> np.nda
             "build with uncompute=True or read flag_probability instead"
         )
     return statevector_array(statevector, inv)[0, 1, 0, :].copy()
+
+
+def postselection(inv: InversionCircuit) -> dict[int, int]:
+    """Qubit → value of the post-selection flag = 1, clock = 0, block = 0 (qubit order system,
+    clock, flag, block): projecting a statevector on it leaves exactly
+    `postselected_system_amplitudes` (``qgp.readout.simulate.run_statevectors(project=…)``)."""
+    if not inv.uncomputed:
+        raise QgpError("phase estimation was not uncomputed, so clock = 0 does not select the answer")
+    m, c, b = inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits
+    out = {m + j: 0 for j in range(c)}
+    out[m + c] = 1
+    out.update({m + c + 1 + j: 0 for j in range(b)})
+    return out
 
 
 def flag_probability(statevector, inv: InversionCircuit) -> float:

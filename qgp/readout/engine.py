@@ -19,7 +19,7 @@ from __future__ import annotations
 import contextlib
 import threading
 from collections import OrderedDict
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Mapping
 from dataclasses import dataclass
 from functools import lru_cache
 from typing import Any
@@ -30,7 +30,7 @@ from qiskit import QuantumCircuit
 
 from qgp.errors import QgpError
 
-__all__ = ["SUPPORTED", "Unsupported", "buffer_pool", "release_buffers", "simulate", "supports"]
+__all__ = ["SUPPORTED", "Unsupported", "buffer_pool", "project_statevector", "release_buffers", "simulate", "supports"]
 
 #: Instruction names the engine applies (anything else: `Unsupported`).
 SUPPORTED = frozenset(
@@ -341,6 +341,53 @@ class _State:
         np.multiply(moved, self.factor, out=out[index])
         return out.reshape(-1)
 
+    def projected(self, project: Mapping[int, int], closing: list[dict]) -> np.ndarray:
+        """The amplitudes with each qubit q of ``project`` at ``project[q]`` after the ``closing``
+        one-qubit layers (applied as ⟨v|·u along their axes), the other qubits in standard order
+        (a new array, the factor applied)."""
+        rows = {q: np.eye(2, dtype=complex)[v] for q, v in project.items()}
+        for layer in closing:  # ⟨v|·u_last·…·u_first
+            for q, u in layer.items():
+                rows[q] = rows[q] @ u
+        t, order, factor = self.t, list(self.order), self.factor
+        for q, row in rows.items():
+            if q not in order:  # still |0⟩: only row[0] survives
+                factor *= row[0]
+        # Plain index picks first (views), then contractions, largest reduction first.
+        for q in [q for q in rows if q in order and np.count_nonzero(rows[q]) == 1]:
+            ax = order.index(q)
+            k = int(np.flatnonzero(rows[q])[0])
+            t = t[(slice(None),) * ax + (k,)]  # a view
+            factor *= rows[q][k]
+            order.pop(ax)
+        contracted = [q for q in order if q in rows]
+        if contracted:
+            # The contracted qubits' axes gathered into one block (usually already together: the
+            # clock), then one product with the Kronecker product of their rows: a single read.
+            first = min(order.index(q) for q in contracted)
+            block = order[first : first + len(contracted)]
+            if set(block) != set(contracted):
+                others = [q for q in order if q not in rows]
+                t = np.asarray(t).transpose([order.index(q) for q in others + contracted])
+                order = others + contracted
+                first = len(others)
+                block = contracted
+            w = np.ones(1, dtype=complex)
+            for q in block:  # most significant axis first
+                w = np.kron(w, rows[q])
+            shape = np.shape(t)
+            hi = int(np.prod(shape[:first], dtype=np.int64))
+            lo = int(np.prod(shape[first + len(block) :], dtype=np.int64))
+            t = np.matmul(w, np.reshape(t, (hi, w.size, lo))).reshape(shape[:first] + shape[first + len(block) :])
+            order = order[:first] + order[first + len(block) :]
+        rest = [q for q in range(self.n) if q not in project]
+        out = np.zeros((2,) * len(rest), dtype=complex)
+        want = sorted(rest, reverse=True)
+        index = tuple(slice(None) if q in order else 0 for q in want)
+        moved = np.asarray(t).transpose([order.index(q) for q in want if q in order]) if order else np.asarray(t)
+        out[index] = moved * factor
+        return out.reshape(-1)
+
     def release(self, reduce=None):
         """The final statevector (a new array, the factor applied), or ``reduce`` of it (given a
         view of the work buffer); the buffers then go back to the pool."""
@@ -363,6 +410,15 @@ class _State:
         return result
 
 
+def project_statevector(statevector: np.ndarray, project: Mapping[int, int]) -> np.ndarray:
+    """The amplitudes of ``statevector`` (qiskit's order) with each qubit q of ``project`` at
+    ``project[q]``, over the other qubits in the same order — what `simulate` hands ``reduce``."""
+    sv = np.asarray(statevector).reshape(-1)
+    n = sv.size.bit_length() - 1
+    index = tuple(project.get(q, slice(None)) for q in range(n - 1, -1, -1))
+    return sv.reshape((2,) * n)[index].reshape(-1).copy()
+
+
 def _matrix_of(op) -> np.ndarray:
     return np.asarray(op.to_matrix(), dtype=complex) if hasattr(op, "to_matrix") else np.asarray(op, dtype=complex)
 
@@ -373,6 +429,7 @@ def simulate(
     labels: list[str] | None = None,
     workers: int = 1,
     reduce: Callable[[np.ndarray], Any] | None = None,
+    project: Mapping[int, int] | None = None,
 ) -> dict[str, Any]:
     """Run ``circuit`` from |0…0⟩.
 
@@ -388,6 +445,12 @@ def simulate(
     reduce : callable, optional
         Called with the final statevector (a view into a work buffer, valid only during the
         call); its result is returned under ``"final"`` instead of a copy of the state.
+    project : mapping qubit → 0 or 1, optional
+        With ``reduce``: only the final amplitudes with these qubits at these values are wanted;
+        ``reduce`` gets them (the other qubits in qiskit's order, `project_statevector`), and a
+        closing layer of one-qubit gates on projected qubits is contracted with the wanted rows
+        instead of applied to the whole state (the same numbers, one read instead of several
+        passes).
 
     Returns
     -------
@@ -404,8 +467,15 @@ def simulate(
     state = _State(circuit.num_qubits)
     out: dict[str, Any] = {}
     final_label = None
+    steps = program.steps
+    closing: list[dict] = []
+    if project and reduce is not None:
+        # The closing one-qubit layers on projected qubits: contracted at the end, not applied.
+        while steps and steps[-1][0] == "layer" and set(steps[-1][1]) <= set(project):
+            closing.insert(0, steps[-1][1])
+            steps = steps[:-1]
     try:
-        for step in program.steps:
+        for step in steps:
             kind = step[0]
             if kind == "mux":
                 state.multiplexer(step[1], step[2], step[3], step[4])
@@ -431,7 +501,12 @@ def simulate(
         state.factor *= program.phase
         for label in list(out):
             out[label] = out[label] * program.phase
-        out["final"] = state.release(reduce)
+        if project and reduce is not None:
+            out["final"] = reduce(state.projected(project, closing))
+            _return_buffers(state.n, state._buffers)
+            state._buffers = []
+        else:
+            out["final"] = state.release(reduce)
     finally:
         state.drop()
     if final_label is not None:

@@ -263,6 +263,7 @@ def run_statevectors(
     cap: int | None = None,
     timings: dict | None = None,
     reduce: Callable[[int, np.ndarray], Any] | None = None,
+    project: dict[int, int] | None = None,
 ) -> list:
     """Final statevectors of measurement-free circuits, all in one simulator job.
 
@@ -273,7 +274,13 @@ def run_statevectors(
 
     ``timings``, when given, accumulates seconds under "transpile" (preparing the circuits for
     Aer) and "simulate" (the jobs themselves, results included).
+
+    ``project`` (qubit → 0/1, with ``reduce``): ``reduce`` gets only the amplitudes with those
+    qubits at those values (`qgp.readout.engine.project_statevector`), whichever engine ran; the
+    numpy engine then skips computing the rest of a closing one-qubit layer.
     """
+    if project is not None and reduce is None:
+        raise QgpError("project needs reduce: the projected amplitudes are handed to it")
     if not circuits:
         return []
     cap = default_memory_cap() if cap is None else int(cap)
@@ -290,7 +297,12 @@ def run_statevectors(
     else:
         groups = _batches(circuits, cap)
     if _use_numpy(circuits, _numpy_bytes(circuits, reduce), cap):
-        return _numpy_statevectors(circuits, cap, timings, reduce)
+        return _numpy_statevectors(circuits, cap, timings, reduce, project)
+    if project is not None:
+        from qgp.readout.engine import project_statevector
+
+        full = reduce
+        reduce = lambda i, sv: full(i, project_statevector(sv, project))  # noqa: E731
     sim = simulator()
     out: list = []
     _log("aer")
@@ -359,7 +371,7 @@ def _numpy_bytes(circuits, reduce) -> int:
     return 2 * statevector_bytes(widest) + kept
 
 
-def _numpy_statevectors(circuits, cap: int, timings: dict | None, reduce) -> list:
+def _numpy_statevectors(circuits, cap: int, timings: dict | None, reduce, project=None) -> list:
     """`run_statevectors` on the numpy engine: one circuit at a time, two work buffers beside
     the state (reused between circuits); with ``reduce`` the final state is never copied."""
     from qgp.readout.engine import simulate
@@ -379,7 +391,7 @@ def _numpy_statevectors(circuits, cap: int, timings: dict | None, reduce) -> lis
         if reduce is None:
             out.append(simulate(c, workers=workers)["final"])
         else:
-            out.append(simulate(c, workers=workers, reduce=lambda sv, i=i: reduce(i, sv))["final"])
+            out.append(simulate(c, workers=workers, reduce=lambda sv, i=i: reduce(i, sv), project=project)["final"])
     if timings is not None:
         timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t0)
     return out

@@ -14,7 +14,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from qgp.circuits.inversion import InversionCircuit, postselected_system_amplitudes, statevector_array
+from qgp.circuits.inversion import InversionCircuit, postselected_system_amplitudes, postselection, statevector_array
 from qgp.classical.problem import Problem
 from qgp.readout.builds import OPERATORS, cached, inversion_key, qpe_body, with_preparation
 from qgp.readout.estimators import (
@@ -157,11 +157,13 @@ def _hybrid(inp: StrategyInputs, sim_times: dict, say: Progress) -> Outcomes:
     say(f"simulating the inversion of ŷ once and {2 * n_test} per-point circuits (hybrid)")
     inv, inv_sqrt = inp.inverse, inp.inverse_sqrt
 
-    def output(i, sv, prep):
-        return postselected_system_amplitudes(sv, prep)
-
+    # Only the post-selected amplitudes are read (flag = 1, clock = 0, block = 0): projected, they
+    # are the system amplitudes themselves.
+    post = postselection(inv)
     mean_prep = with_preparation(inv, inp.yhat)
-    [v] = run_statevectors([mean_prep.circuit], cap=inp.cap, timings=sim_times, reduce=lambda i, sv: output(i, sv, mean_prep))
+    [v] = run_statevectors(
+        [mean_prep.circuit], cap=inp.cap, timings=sim_times, reduce=lambda i, amps: amps, project=post
+    )
     p0, p1 = hadamard_probabilities(v, inp.khat)
     var_circuits = [variance_circuit(inv_sqrt.circuit, inp.khat[:, j]) for j in range(n_test)]
     p_flag = np.array(
@@ -178,7 +180,8 @@ def _hybrid(inp: StrategyInputs, sim_times: dict, say: Progress) -> Outcomes:
             [p.circuit for p in preps],
             cap=inp.cap,
             timings=sim_times,
-            reduce=lambda i, sv: float(np.real(inp.khat[:, i] @ postselected_system_amplitudes(sv, preps[i]))),
+            reduce=lambda i, amps: float(np.real(inp.khat[:, i] @ amps)),
+            project=post,
         )
     )
     return Outcomes(

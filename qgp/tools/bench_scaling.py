@@ -58,7 +58,7 @@ def _run_case(case: dict) -> dict:
     qc.global_phase = 0.0  # compose adds the circuit's phase again
     qc.compose(inv.circuit, inplace=True, copy=False)
     qc.append(SaveStatevector(qc.num_qubits), qc.qubits)
-    from qgp.circuits.inversion import postselected_system_amplitudes
+    from qgp.circuits.inversion import postselection
     from qgp.readout.simulate import engine_scope, run_statevectors
 
     aer_seconds = simulate_seconds = None
@@ -71,7 +71,7 @@ def _run_case(case: dict) -> dict:
     # qgp's default engine on the same circuit, reading what qgp reads (the post-selected amplitudes).
     t2 = time.perf_counter()
     with engine_scope("numpy"):
-        run_statevectors([inv.circuit], reduce=lambda i, sv: postselected_system_amplitudes(sv, inv))
+        run_statevectors([inv.circuit], reduce=lambda i, amps: amps, project=postselection(inv))
     numpy_seconds = time.perf_counter() - t2
     return {
         "qubits": inv.circuit.num_qubits,

@@ -182,6 +182,51 @@ def test_random_circuits_of_supported_gates_equal_aer(ops):
     assert _worst(got, ref) < TOL, f"worst |Δamplitude| {_worst(got, ref):.2e}"
 
 
+@pytest.mark.parametrize("settings_", _cases())
+def test_projected_read_out_equals_aers_postselected_amplitudes(settings_):
+    """With ``project`` only the post-selected amplitudes are computed (the closing Hadamards
+    contracted with the read-out rows); they equal Aer's post-selected amplitudes."""
+    from qgp.circuits.inversion import postselected_system_amplitudes, postselection
+
+    A = _spd(8, 9)
+    lam = np.linalg.eigvalsh(A)
+    inv, _ = cached_pair(A, settings_, (0.95 * lam[0], 1.05 * lam[-1]))
+    prep = with_preparation(inv, _unit(8, 4))
+    [ref] = _aer([prep.circuit])
+    want = postselected_system_amplitudes(ref, prep)
+    with engine_scope("numpy"):
+        [got] = run_statevectors([prep.circuit], reduce=lambda i, amps: amps, project=postselection(prep))
+    with engine_scope("aer"):
+        [via_aer] = run_statevectors([prep.circuit], reduce=lambda i, amps: amps, project=postselection(prep))
+    assert _worst(got, want) < TOL, f"worst |Δamplitude| {_worst(got, want):.2e}"
+    assert _worst(via_aer, want) == 0.0
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    st.lists(st.tuples(st.sampled_from(["h", "ry", "cx", "cp"]), st.integers(0, 3), st.integers(0, 3), st.floats(-3, 3)),
+             min_size=1, max_size=15),
+    st.dictionaries(st.integers(0, 3), st.integers(0, 1), min_size=1, max_size=3),
+    st.lists(st.tuples(st.sampled_from(["h", "ry", "x"]), st.floats(-3, 3)), min_size=0, max_size=3),
+)
+def test_projection_equals_slicing_the_full_state(ops, project, closing):
+    """Law: the engine's projected amplitudes (closing one-qubit gates on projected qubits
+    contracted, not applied) equal the full state sliced, for any circuit and projection."""
+    from qgp.readout.engine import project_statevector
+
+    qc = QuantumCircuit(4)
+    for name, a, b, theta in ops:
+        b = b if b != a else (a + 1) % 4
+        {"h": lambda: qc.h(a), "ry": lambda: qc.ry(theta, a), "cx": lambda: qc.cx(a, b), "cp": lambda: qc.cp(theta, a, b)}[name]()
+    for q in project:  # a closing layer on the projected qubits
+        for name, theta in closing:
+            {"h": lambda: qc.h(q), "ry": lambda: qc.ry(theta, q), "x": lambda: qc.x(q)}[name]()
+    [ref] = _aer([qc])
+    want = project_statevector(ref, project)
+    got = engine.simulate(qc, reduce=lambda amps: amps, project=project)["final"]
+    assert _worst(got, want) < TOL, f"worst |Δamplitude| {_worst(got, want):.2e}"
+
+
 def test_unsupported_instructions_fall_back_to_aer_or_are_refused():
     qc = QuantumCircuit(2)
     qc.h(0)
