@@ -18,36 +18,16 @@ from __future__ import annotations
 
 import contextlib
 import threading
-from collections import OrderedDict
 from collections.abc import Callable, Iterator, Mapping
-from dataclasses import dataclass
-from functools import lru_cache
 from typing import Any
 
 import numpy as np
 import scipy.fft
 from qiskit import QuantumCircuit
 
-from qgp.errors import QgpError
+from qgp.readout.engine_program import SUPPORTED, Unsupported, compiled, supports
 
 __all__ = ["SUPPORTED", "Unsupported", "buffer_pool", "project_statevector", "release_buffers", "simulate", "supports"]
-
-#: Instruction names the engine applies (anything else: `Unsupported`).
-SUPPORTED = frozenset(
-    {"h", "x", "y", "z", "s", "sdg", "t", "tdg", "p", "rz", "ry", "rx", "u", "cx", "cz", "cp", "swap",
-     "multiplexer", "diagonal", "unitary", "save_statevector", "barrier"}
-)
-_DIAGONAL_NAMES = frozenset({"z", "s", "sdg", "t", "tdg", "p", "rz", "cz", "cp", "diagonal"})
-
-
-class Unsupported(QgpError):
-    """The circuit holds an instruction the engine does not apply (use Aer)."""
-
-
-def supports(circuit: QuantumCircuit) -> bool:
-    """Whether every instruction of ``circuit`` is one the engine applies."""
-    return all(inst.operation.name in SUPPORTED for inst in circuit.data)
-
 
 _POOL_LOCK = threading.Lock()
 _POOL: dict[int, list[np.ndarray]] = {}
@@ -96,16 +76,6 @@ def buffer_pool() -> Iterator[None]:
                 _POOL.clear()
 
 
-@lru_cache(maxsize=64)
-def _qft_signature(c: int, inverse: bool) -> tuple:
-    """(name, params, qubit offsets) of qgp's written-out (inverse) QFT on c qubits."""
-    from qgp.circuits.phase_estimation import _inverse_qft, _qft
-
-    qc = _inverse_qft(c) if inverse else _qft(c)
-    return tuple(
-        (i.operation.name, tuple(float(p) for p in i.operation.params), tuple(qc.find_bit(q).index for q in i.qubits))
-        for i in qc.data
-    )
 
 
 class _State:
@@ -419,8 +389,6 @@ def project_statevector(statevector: np.ndarray, project: Mapping[int, int]) -> 
     return sv.reshape((2,) * n)[index].reshape(-1).copy()
 
 
-def _matrix_of(op) -> np.ndarray:
-    return np.asarray(op.to_matrix(), dtype=complex) if hasattr(op, "to_matrix") else np.asarray(op, dtype=complex)
 
 
 def simulate(
@@ -462,7 +430,7 @@ def simulate(
     Unsupported
         When an instruction is not in `SUPPORTED` (checked before any work).
     """
-    program = _program(circuit)
+    program = compiled(circuit)
     wanted = set(labels or ())
     state = _State(circuit.num_qubits)
     out: dict[str, Any] = {}
@@ -514,224 +482,22 @@ def simulate(
     return out
 
 
-@dataclass(frozen=True)
-class _Program:
-    """A circuit as the engine's steps: ("mux", stack, targets, controls), ("layer", {qubit: 2×2}),
-    ("fft", qubits, inverse?), ("diag", d, qubits), ("x", q), ("cx", c, t), ("swap", a, b),
-    ("save", label, last?), ("matrix", u, qubits); ``phase`` the global phase factor."""
-
-    steps: tuple
-    phase: complex
 
 
-_PROGRAMS_LOCK = threading.Lock()
-#: Compiled circuits, keyed by id() with the circuit itself held (so the id is not reused) and
-#: its length checked; a sweep or a benchmark that simulates one circuit again skips compiling.
-_PROGRAMS: OrderedDict = OrderedDict()
-_PROGRAMS_SIZE = 16
 
 
-def _program(circuit: QuantumCircuit) -> _Program:
-    key = id(circuit)
-    with _PROGRAMS_LOCK:
-        hit = _PROGRAMS.get(key)
-        if hit is not None and hit[0] is circuit and hit[1] == len(circuit.data):
-            _PROGRAMS.move_to_end(key)
-            return hit[2]
-    program = _compile(circuit)
-    with _PROGRAMS_LOCK:
-        _PROGRAMS[key] = (circuit, len(circuit.data), program)
-        while len(_PROGRAMS) > _PROGRAMS_SIZE:
-            _PROGRAMS.popitem(last=False)
-    return program
 
 
-def _compile(circuit: QuantumCircuit) -> _Program:
-    bad = sorted({i.operation.name for i in circuit.data} - SUPPORTED)
-    if bad:
-        raise Unsupported(f"the numpy engine does not apply {', '.join(bad)}; run it on Aer")
-    index = {q: i for i, q in enumerate(circuit.qubits)}
-    data = circuit.data
-    steps: list[tuple] = []
-    pos = 0
-    while pos < len(data):
-        inst = data[pos]
-        op = inst.operation
-        name = op.name
-        qs = [index[q] for q in inst.qubits]
-        if name in ("h", "swap"):
-            match = _match_qft(data, pos, index)
-            if match is not None:
-                length, qubits, inverse = match
-                steps.append(("fft", qubits, inverse))
-                pos += length
-                continue
-        if name == "multiplexer":
-            stack, targets, controls, length = _merged_multiplexers(data, pos, index)
-            steps.append(("mux", stack, targets, controls, _identity_blocks(stack)))
-            pos += length
-            continue
-        if len(qs) == 1 and name not in _DIAGONAL_NAMES and name not in ("x", "save_statevector", "barrier"):
-            length = _one_qubit_run(data, pos, index)
-            per_qubit: dict[int, np.ndarray] = {}
-            for layer_inst in data[pos : pos + length]:
-                q = index[layer_inst.qubits[0]]
-                u = _matrix_of(layer_inst.operation)
-                per_qubit[q] = u @ per_qubit[q] if q in per_qubit else u
-            steps.append(("layer", per_qubit))
-            pos += length
-            continue
-        if name == "diagonal":
-            steps.append(("diag", np.asarray(op.params, dtype=complex), qs))
-        elif name in _DIAGONAL_NAMES:
-            steps.append(("diag", np.diag(_matrix_of(op)).copy(), qs))
-        elif name in ("x", "cx", "swap"):
-            steps.append((name, *qs))
-        elif name == "save_statevector":
-            steps.append(("save", op.label or "statevector", pos == len(data) - 1))
-        elif name != "barrier":
-            steps.append(("matrix", _matrix_of(op), qs))
-        pos += 1
-    return _Program(tuple(_fuse_conditioned(steps)), complex(np.exp(1j * float(circuit.global_phase))))
 
 
-def _fuse_conditioned(steps: list[tuple]) -> list[tuple]:
-    """Runs of one-qubit layers on one qubit t and diagonals (on t and other qubits C) become one
-    multiplexer on t controlled by C: every step of the run is block-diagonal in C, so the run is
-    Σ_k |k⟩⟨k|_C ⊗ U_k with U_k the product of its 2 × 2 blocks (the eigenvalue-conditioned
-    rotation, written as S†·H·diag·H·S, is such a run: one pass instead of five)."""
-    out: list[tuple] = []
-    i = 0
-    while i < len(steps):
-        j, target = i, None
-        while j < len(steps):
-            kind = steps[j][0]
-            if kind == "layer" and len(steps[j][1]) == 1:
-                (q,) = steps[j][1]
-                if target not in (None, q):
-                    break
-                target = q
-            elif kind != "diag":
-                break
-            j += 1
-        run = steps[i:j]
-        controls = sorted({q for st in run if st[0] == "diag" for q in st[2]} - {target})
-        if target is None or len(run) < 2 or not controls or not any(st[0] == "diag" and target in st[2] for st in run):
-            out.append(steps[i])
-            i += 1
-            continue
-        if any(st[0] == "diag" and any(q not in controls and q != target for q in st[2]) for st in run):
-            out.append(steps[i])
-            i += 1
-            continue
-        K = 2 ** len(controls)
-        k = np.arange(K)
-        U = np.broadcast_to(np.eye(2, dtype=complex), (K, 2, 2)).copy()
-        for st in run:
-            if st[0] == "layer":
-                U = st[1][target] @ U
-                continue
-            d, qs = st[1], st[2]
-            # d's index: Σ_i bit_i·2^i over qs; read it for every control value k and t = 0, 1.
-            base = np.zeros(K, dtype=np.int64)
-            tbit = 0
-            for pos_, q in enumerate(qs):
-                if q == target:
-                    tbit = 1 << pos_
-                else:
-                    base |= ((k >> controls.index(q)) & 1) << pos_
-            U = np.stack([d[base], d[base | tbit]], axis=1)[:, :, None] * U
-        out.append(("mux", U, [target], controls, None))
-        i = j
-    return out
 
 
-def _match_qft(data, pos: int, index: dict) -> tuple[int, list[int], bool] | None:
-    """(length, qubits, inverse?) when the instructions from ``pos`` are qgp's written-out inverse
-    QFT or QFT on some qubits (one H on each, with the controlled phases and swaps between)."""
-    # The inverse QFT starts with the swaps (qiskit's synthesis) or an H; find the register from
-    # the run of h/cp/swap instructions and try each width it could have.
-    run_end = pos
-    qubits: list[int] = []
-    while run_end < len(data) and data[run_end].operation.name in ("h", "cp", "swap"):
-        for q in data[run_end].qubits:
-            if index[q] not in qubits:
-                qubits.append(index[q])
-        run_end += 1
-    if run_end - pos < 3:
-        return None
-    lo = min(qubits)
-    for c in range(len(qubits), 1, -1):
-        reg = list(range(lo, lo + c))
-        for inverse in (True, False):
-            sig = _qft_signature(c, inverse)
-            if pos + len(sig) > run_end:
-                continue
-            if all(
-                data[pos + i].operation.name == s[0]
-                and tuple(float(p) for p in data[pos + i].operation.params) == s[1]
-                and tuple(index[q] - lo for q in data[pos + i].qubits) == s[2]
-                for i, s in enumerate(sig)
-            ):
-                return len(sig), reg, inverse
-    return None
 
 
-#: Largest stack of matrices a merge of consecutive multiplexers may build.
-_MAX_MERGED_BYTES = 1 << 26
 
 
-def _stack_of(op) -> np.ndarray:
-    stack = getattr(op, "stack", None)  # qgp's MultiplexerGate keeps its blocks as one array
-    return stack if stack is not None else np.asarray(op.params, dtype=complex)
 
 
-def _merged_multiplexers(data, pos: int, index: dict) -> tuple[np.ndarray, list[int], list[int], int]:
-    """The multiplexer at ``pos`` merged with the ones right after it that act on the same targets
-    with other controls: Σ_k |k⟩⟨k| ⊗ U_k then Σ_l |l⟩⟨l| ⊗ V_l is Σ_(k,l) |k,l⟩⟨k,l| ⊗ V_l·U_k, one
-    pass instead of two (products of the circuit's own blocks, up to `_MAX_MERGED_BYTES`)."""
-    first = data[pos]
-    n_t = first.operation.params[0].shape[0].bit_length() - 1
-    qs = [index[q] for q in first.qubits]
-    targets, controls = qs[:n_t], qs[n_t:]
-    blocks = len(first.operation.params)
-    block_bytes = first.operation.params[0].nbytes
-    # Merging saves a pass over the state but reads a larger stack: merge while the stack stays
-    # no larger than the state (and `_MAX_MERGED_BYTES`).
-    limit = min(_MAX_MERGED_BYTES, 16 * 2 ** len(index))
-    ops = [first.operation]
-    length = 1
-    while pos + length < len(data):
-        nxt = data[pos + length]
-        if nxt.operation.name != "multiplexer":
-            break
-        oq = [index[q] for q in nxt.qubits]
-        if nxt.operation.params[0].shape != first.operation.params[0].shape or oq[:n_t] != targets:
-            break
-        if set(oq[n_t:]) & set(controls) or blocks * len(nxt.operation.params) * block_bytes > limit:
-            break
-        blocks *= len(nxt.operation.params)
-        controls = controls + oq[n_t:]
-        ops.append(nxt.operation)
-        length += 1
-    if len(ops) == 1 and controls == sorted(controls):
-        return _stack_of(ops[0]), targets, controls, 1
-    key = (tuple(id(op) for op in ops), tuple(sorted(range(len(controls)), key=controls.__getitem__)))
-    with _PROGRAMS_LOCK:
-        hit = _STACKS.get(key)
-        if hit is not None:
-            _STACKS.move_to_end(key)
-            return hit[1], targets, sorted(controls), length
-    stack = _stack_of(ops[0])
-    for op in ops[1:]:
-        # New control index = k + K·l (the new controls are more significant).
-        stack = np.matmul(_stack_of(op)[:, None], stack[None]).reshape(-1, *stack.shape[1:])
-    stack = _sorted_controls(stack, controls)
-    with _PROGRAMS_LOCK:
-        _STACKS[key] = (ops, stack)  # the ops are held so their ids are not reused
-        while len(_STACKS) > _PROGRAMS_SIZE:
-            _STACKS.popitem(last=False)
-    return stack, targets, sorted(controls), length
 
 
 def _blocks(view: np.ndarray, stack: np.ndarray, out: np.ndarray, identity) -> None:
@@ -746,45 +512,14 @@ def _blocks(view: np.ndarray, stack: np.ndarray, out: np.ndarray, identity) -> N
             np.matmul(view[k], stack[k].T, out=out[k])
 
 
-def _identity_blocks(stack: np.ndarray) -> np.ndarray | None:
-    """Which blocks are exactly the identity (None when none is, or when there are too many to loop)."""
-    if stack.shape[0] > 64:
-        return None
-    eye = np.eye(stack.shape[1], dtype=stack.dtype)
-    mask = np.array([np.array_equal(b, eye) for b in stack])
-    return mask if mask.any() else None
 
 
-#: Merged (and control-sorted) multiplexer stacks, keyed by the ids of the merged operations:
-#: the per-point circuits of one inference share their phase-estimation body's operations.
-_STACKS: OrderedDict = OrderedDict()
 
 
-def _sorted_controls(stack: np.ndarray, controls: list[int]) -> np.ndarray:
-    """``stack`` re-indexed so that its controls run in ascending qubit order."""
-    if controls != sorted(controls):
-        # Relabel k so that the controls run in ascending qubit order (as they lie in the state).
-        nc, T = len(controls), stack.shape[1]
-        axes_now = list(reversed(controls))  # axis j of the reshaped index ↔ this qubit
-        want = sorted(controls, reverse=True)
-        stack = np.ascontiguousarray(
-            stack.reshape((2,) * nc + (T, T)).transpose([axes_now.index(q) for q in want] + [nc, nc + 1])
-        ).reshape(-1, T, T)
-    return stack
 
 
-def _one_qubit_run(data, pos: int, index: dict) -> int:
-    """How many instructions from ``pos`` are one-qubit gates to fuse (stopping at a QFT)."""
-    end = pos
-    while end < len(data):
-        inst = data[end]
-        name = inst.operation.name
-        if len(inst.qubits) != 1 or name in _DIAGONAL_NAMES or name in ("x", "save_statevector", "barrier"):
-            break
-        if end > pos and name == "h" and _match_qft(data, end, index) is not None:
-            break
-        end += 1
-    return end - pos
+
+
 
 
 #: Largest group of qubits a fused one-qubit layer applies as one matrix (2^4 × 2^4).

@@ -128,7 +128,7 @@ def test_written_out_qft_runs_as_an_fft_equal_to_qiskits_qftgate(c, monkeypatch)
 
 def _run_on(state, circ):
     """The engine's instruction loop, from a given state (test helper; same code path as simulate)."""
-    from qgp.readout.engine import _match_qft
+    from qgp.readout.engine_program import _match_qft
 
     index = {q: i for i, q in enumerate(circ.qubits)}
     pos = 0
