@@ -34,7 +34,14 @@ from qiskit.circuit import CircuitInstruction
 
 from qgp.circuits.encoding import MultiplexerGate, amplitude_encoding, amplitude_encoding_matrix
 from qgp.errors import QgpError
-from qgp.circuits.inversion import FLAG, InversionCircuit, flag_rotation_circuit, rotation_angles, statevector_array
+from qgp.circuits.inversion import (
+    FLAG,
+    InversionCircuit,
+    flag_probability,
+    flag_rotation_circuit,
+    rotation_angles,
+    statevector_array,
+)
 from qgp.readout.simulate import require_memory, run_counts, run_saved_statevectors, run_statevectors, statevector_bytes
 
 __all__ = [
@@ -511,7 +518,7 @@ def per_point_probabilities(
     def reduce(i, sv):
         if i < n_test:
             return _hadamard_outcome(sv, inverse)
-        return float(np.sum(np.abs(statevector_array(sv, sqrt_inv)[:, 1]) ** 2))
+        return flag_probability(sv, sqrt_inv)
 
     out = run_statevectors(mean_circuits + var_circuits, cap=cap, timings=timings, reduce=reduce)
     p0 = np.array([o[0] for o in out[:n_test]])

@@ -14,7 +14,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from qgp.circuits.inversion import InversionCircuit, postselected_system_amplitudes, postselection, statevector_array
+from qgp.circuits.inversion import InversionCircuit, flag_probability, postselected_system_amplitudes, postselection
 from qgp.classical.problem import Problem
 from qgp.readout.builds import OPERATORS, cached, inversion_key, qpe_body, with_preparation
 from qgp.readout.estimators import (
@@ -171,7 +171,7 @@ def _hybrid(inp: StrategyInputs, sim_times: dict, say: Progress) -> Outcomes:
             var_circuits,
             cap=inp.cap,
             timings=sim_times,
-            reduce=lambda i, sv: float(np.sum(np.abs(statevector_array(sv, inv_sqrt)[:, 1]) ** 2)),
+            reduce=lambda i, sv: flag_probability(sv, inv_sqrt),
         )
     )
     preps = [with_preparation(inv, inp.khat[:, j]) for j in range(n_test)]
