@@ -257,7 +257,8 @@ class _State:
         self.order.insert(0, target)
 
     def drop(self) -> None:
-        """Forget the state (after an error too); buffers not yet returned are freed."""
+        """Forget the state (after an error too): its work buffers go back to the pool."""
+        _return_buffers(self.n, self._buffers)
         self._buffers = []
         self.t = np.ones((), dtype=complex)
 
@@ -360,7 +361,7 @@ class _State:
 
     def release(self, reduce=None):
         """The final statevector (a new array, the factor applied), or ``reduce`` of it (given a
-        view of the work buffer); the buffers then go back to the pool."""
+        view of the work buffer); `drop` then returns the buffers to the pool."""
         self._touch(range(self.n))
         want = list(range(self.n - 1, -1, -1))
         if self.order != want:
@@ -375,8 +376,6 @@ class _State:
         else:
             result = np.empty(2**self.n, dtype=complex)
             np.multiply(flat, self.factor, out=result)
-        _return_buffers(self.n, self._buffers)
-        self._buffers = []
         return result
 
 
@@ -471,8 +470,6 @@ def simulate(
             out[label] = out[label] * program.phase
         if project and reduce is not None:
             out["final"] = reduce(state.projected(project, closing))
-            _return_buffers(state.n, state._buffers)
-            state._buffers = []
         else:
             out["final"] = state.release(reduce)
     finally:

@@ -45,7 +45,7 @@ def machine_rates(state_bytes: int) -> dict:
     return {"copy_bandwidth_bytes_per_s": 2 * a.nbytes / best, "gemm_flops_per_s": 8 * 1024**3 / gemm}
 
 
-def _stages(qubits: int, system_qubits: int, clock_qubits: int, powers: int, snapshot_saves: int) -> list[dict]:
+def _stages(qubits: int, system_qubits: int, clock_qubits: int, snapshot_saves: int) -> list[dict]:
     """The whole-state stages of one inversion (see the module docstring)."""
     amps = 2**qubits
     dim = 2**system_qubits
@@ -139,7 +139,7 @@ def floor_case(kind: str, clock_qubits: int, *, repeats: int = 5, aer_repeats: i
     t_aer = _best(lambda: run("aer"), aer_repeats)
     engine.release_buffers()
     rates = machine_rates(16 * 2**q)
-    stages = _stages(q, m, clock_qubits, 2, saves)
+    stages = _stages(q, m, clock_qubits, saves)
     floor = _floor(stages, rates)
     return {
         "kind": kind,

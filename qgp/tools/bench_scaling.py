@@ -155,7 +155,7 @@ def run_scaling(s: "BenchSettings", say: Progress) -> dict:
             r["bytes_per_layer"] = layer_bytes
             r["bandwidth_floor_seconds"] = per_instruction
             r["fraction_of_bandwidth_limit"] = per_instruction / r["aer_seconds"] if r["aer_seconds"] else None
-            floor = _floor(_stages(r["qubits"], system_qubits, c, 2, 0), {**rates, "copy_bandwidth_bytes_per_s": bandwidth})
+            floor = _floor(_stages(r["qubits"], system_qubits, c, 0), {**rates, "copy_bandwidth_bytes_per_s": bandwidth})
             r["floor_seconds"] = floor
             r["numpy_floor_ratio"] = r["numpy_seconds"] / floor
             r["aer_floor_ratio"] = r["aer_seconds"] / floor if r["aer_seconds"] else None
