@@ -30,6 +30,7 @@ from qgp.settings import (
     ReadoutSettings,
     Strategy,
     Engine,
+    Method,
     choices,
 )
 
@@ -50,6 +51,9 @@ _SECTIONS: dict[str, tuple[str, ...]] = {
         "trotter_order",
         "evolution_time",
         "filter_floor",
+        "method",
+        "target_error",
+        "degree",
     ),
     "readout": ("shots", "seed", "strategy", "memory_cap_gib", "engine"),
 }
@@ -230,8 +234,22 @@ def _parse_noise(v: _Validator, t: dict, kernel: KernelSpec) -> NoiseSpec:
     return NoiseSpec(variance=var, target_condition=kappa)
 
 
+#: Keys of ``[circuit]`` that only phase estimation reads (refused with ``method = "qsvt"``) and
+#: only QSVT reads (refused otherwise).
+_PHASE_ESTIMATION_KEYS = ("clock_qubits", "evolution", "trotter_steps", "trotter_order", "evolution_time", "filter_floor")
+_QSVT_KEYS = ("target_error", "degree")
+#: Largest QSVT polynomial degree accepted (block-encoding calls per circuit).
+MAX_QSVT_DEGREE = 10000
+
+
 def _parse_circuit(v: _Validator, t: dict) -> CircuitSettings:
     d = CircuitSettings()
+    method = v.choice(t, "circuit", "method", d.method, Method)
+    if method == "qsvt":
+        return _parse_qsvt(v, t)
+    for key in _QSVT_KEYS:
+        if key in t:
+            raise v.fail("circuit", key, 'applies only to method = "qsvt"; remove it or set [circuit] method = "qsvt"')
     # The registries' names, declared in qgp.settings (this stage precedes the circuits stage).
     evolution = v.choice(t, "circuit", "evolution", d.evolution, tuple(EVOLUTION_USES_BLOCK_ENCODING))
     encoding = v.choice(t, "circuit", "encoding", d.encoding, Encoding)
@@ -264,6 +282,26 @@ def _parse_circuit(v: _Validator, t: dict) -> CircuitSettings:
         evolution_time=evolution_time,
         filter_floor=v.number(t, "circuit", "filter_floor", None, positive=True),
     )
+
+
+def _parse_qsvt(v: _Validator, t: dict) -> CircuitSettings:
+    """``method = "qsvt"``: the encoding and exactly one of ``target_error`` / ``degree``."""
+    for key in _PHASE_ESTIMATION_KEYS:
+        if key in t:
+            raise v.fail("circuit", key, 'applies only to method = "phase_estimation" (QSVT has no clock or oracle); remove it')
+    encoding = v.choice(t, "circuit", "encoding", CircuitSettings().encoding, Encoding)
+    target = v.number(t, "circuit", "target_error", None, gt=0.0)
+    degree = v.integer(t, "circuit", "degree", None, minimum=1, maximum=MAX_QSVT_DEGREE)
+    if (target is None) == (degree is None):
+        raise QgpError(
+            f"{v.where}: [circuit] method = \"qsvt\" needs exactly one of target_error (the polynomial's relative "
+            "error, e.g. 1e-2) or degree; give one"
+        )
+    if degree is not None and degree % 2 == 0:
+        raise v.fail("circuit", "degree", f"is the inversion polynomial's degree and must be odd, got {degree}; use {degree + 1}")
+    if target is not None and not target < 1:
+        raise v.fail("circuit", "target_error", f"must be below 1 (a relative error), got {target!r}")
+    return CircuitSettings(method="qsvt", clock_qubits=0, encoding=encoding, target_error=target, degree=degree)
 
 
 def _parse_readout(v: _Validator, t: dict) -> ReadoutSettings:

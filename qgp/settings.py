@@ -17,6 +17,7 @@ __all__ = [
     "KernelFamily",
     "Encoding",
     "Evolution",
+    "Method",
     "EVOLUTION_USES_BLOCK_ENCODING",
     "Strategy",
     "Engine",
@@ -38,6 +39,9 @@ KernelFamily = Literal["rbf", "matern32", "matern52", "wendland"]
 # tests/circuits/test_methods.py checks list exactly the registries' names (and uses_block_encoding).
 Encoding = Literal["lcu", "dilation"]
 Evolution = Literal["exact", "trotter", "walk"]
+#: ``[circuit] method``: phase-estimation inversion (with an ``evolution`` oracle and a clock) or the
+#: quantum singular value transformation of the ``encoding`` (qgp.circuits.qsvt).
+Method = Literal["phase_estimation", "qsvt"]
 
 #: For each ``[circuit] evolution``: whether ``[circuit] encoding`` applies to it (the method's
 #: ``uses_block_encoding``).
@@ -107,9 +111,11 @@ class NoiseSpec:
 class CircuitSettings:
     """``[circuit]``: the inversion circuit.
 
+    ``method = "phase_estimation"`` (the default): ``evolution``, ``clock_qubits`` and the rest.
     ``encoding`` applies only to methods that use a block encoding (``evolution = "walk"``; the
     other oracles need no block register). ``evolution_time`` and ``filter_floor`` override the values derived from
-    the eigenvalue bounds.
+    the eigenvalue bounds. ``method = "qsvt"``: the polynomial of ``encoding``'s A/α with relative
+    error ``target_error`` or of ``degree`` (exactly one); ``clock_qubits`` is then 0 (no clock).
     """
 
     clock_qubits: int = 8
@@ -119,6 +125,9 @@ class CircuitSettings:
     trotter_order: TrotterOrder = 2
     evolution_time: float | None = None
     filter_floor: float | None = None
+    method: Method = "phase_estimation"
+    target_error: float | None = None
+    degree: int | None = None
 
 
 @dataclass(frozen=True)

@@ -177,3 +177,32 @@ def test_training_subsample_is_reproducible_and_nested(tmp_path):
     cfg = load_config(_write(tmp_path, BASE + "n_train = 50\n[noise]\nvariance = 0.1\n", train=rows))
     with pytest.raises(QgpError, match="has only 20 rows"):
         load_dataset(cfg.data)
+
+
+def test_qsvt_config_loads(tmp_path):
+    cfg = load_config(_write(tmp_path, BASE + '[noise]\nvariance = 0.1\n[circuit]\nmethod = "qsvt"\nencoding = "lcu"\ntarget_error = 1e-3\n'))
+    c = cfg.circuit
+    assert (c.method, c.encoding, c.target_error, c.degree, c.clock_qubits) == ("qsvt", "lcu", 1e-3, None, 0)
+    assert load_config(_write(tmp_path, BASE + '[noise]\nvariance = 0.1\n')).circuit.method == "phase_estimation"
+
+
+@pytest.mark.parametrize(
+    "circuit, fragment",
+    [
+        ('method = "qsvt"\n', "exactly one of target_error"),
+        ('method = "qsvt"\ntarget_error = 1e-2\ndegree = 11\n', "exactly one of target_error"),
+        ('method = "qsvt"\ntarget_error = 1.5\n', "target_error must be below 1"),
+        ('method = "qsvt"\ntarget_error = 0\n', "target_error"),
+        ('method = "qsvt"\ndegree = 0\n', "degree"),
+        ('method = "qsvt"\ndegree = 10\n', "must be odd"),
+        ('method = "qsvt"\ndegree = 11\nclock_qubits = 6\n', 'clock_qubits applies only to method = "phase_estimation"'),
+        ('method = "qsvt"\ndegree = 11\nevolution = "walk"\n', 'evolution applies only to method = "phase_estimation"'),
+        ('target_error = 1e-2\n', 'target_error applies only to method = "qsvt"'),
+        ('method = "hhl"\n', "method"),
+    ],
+)
+def test_bad_qsvt_settings_are_one_clear_error(tmp_path, circuit, fragment):
+    with pytest.raises(QgpError, match=None) as err:
+        load_config(_write(tmp_path, BASE + "[noise]\nvariance = 0.1\n[circuit]\n" + circuit))
+    msg = str(err.value)
+    assert fragment in msg and "\n" not in msg, msg

@@ -114,6 +114,10 @@ class InversionCircuit:
     n_pauli_terms: int = 0
     oracle: PhaseOracle | None = field(default=None, repr=False, compare=False)
     rotation_start: int | None = None
+    #: QSVT (``settings.method = "qsvt"``): the polynomial the circuit applies to A/α
+    #: (qgp.circuits.polynomials) and the phase factors' measured residual; None for phase estimation.
+    polynomial: object | None = field(default=None, repr=False, compare=False)
+    phase_residual: float | None = None
 
     @property
     def clock_qubits(self) -> int:
@@ -291,8 +295,14 @@ def build_inversion(
     amplitude encoding of that vector on ``system``. ``uncompute`` defaults to True for
     ``inverse`` and False for ``inverse_sqrt`` (whose answer, P(flag = 1), needs no uncompute).
     ``oracle`` reuses a phase oracle already built for the same A, settings, bounds and form (the
-    ``inverse`` and ``inverse_sqrt`` circuits share one).
+    ``inverse`` and ``inverse_sqrt`` circuits share one). ``settings.method = "qsvt"`` builds the
+    QSVT circuit instead (qgp.circuits.qsvt_inversion; the same read-out).
     """
+    if settings.method != "phase_estimation":
+        builder = _other_builders().get(settings.method)
+        if builder is None:
+            raise QgpError(f"unknown [circuit] method {settings.method!r}; choose 'phase_estimation' or one of {tuple(_other_builders())}")
+        return builder(A, settings, rotation, bounds, prepare=prepare, uncompute=uncompute, form=form, oracle=oracle)
     a, lo, hi = check_inversion_inputs(A, settings, rotation, bounds, form)
     m = a.shape[0].bit_length() - 1
     if uncompute is None:
@@ -366,6 +376,14 @@ def build_inversion(
         oracle=oracle,
         rotation_start=rotation_start,
     )
+
+
+def _other_builders() -> dict:
+    """``[circuit] method`` → builder for the methods other than phase estimation (imported on use:
+    they import this module)."""
+    from qgp.circuits.qsvt_inversion import build_qsvt_inversion
+
+    return {"qsvt": build_qsvt_inversion}
 
 
 def eigenvalue_filter(inv: InversionCircuit) -> np.ndarray:

@@ -58,6 +58,7 @@ from qgp.circuits.decomposition import (  # re-exported: the decomposition is pa
 )
 from qgp.circuits.encoding import BLOCK, SYSTEM, check_matrix, pauli_decomposition, pauli_terms_bound
 from qgp.circuits.inversion import FLAG, InversionCircuit, build_inversion, check_inversion_inputs
+from qgp.circuits.algorithms import algorithm_of
 from qgp.circuits.methods import get_method
 from qgp.circuits.phase_estimation import CLOCK
 from qgp.classical.system import matrix_key
@@ -85,6 +86,7 @@ __all__ = [
     "resources_of",
     "inversion_resources",
     "inference_resources",
+    "qsvt_resources",
 ]
 
 #: The two fixed bases, by the key used in `CircuitResources.gate_counts` and in JSON.
@@ -480,6 +482,8 @@ def inversion_resources(
     counts are always filled.
     """
     a = check_matrix(A)
+    if not algorithm_of(settings).uses_clock:
+        return qsvt_resources(a, settings, rotation, bounds, gate_level=gate_level, require_gate_level=require_gate_level)
     _validated(a, settings, rotation, bounds)
     if uncompute is None:
         uncompute = rotation == "inverse"
@@ -520,6 +524,59 @@ def _inversion_resources(a, settings, rotation, bounds, gate_level, require_gate
         return _query_only(a, settings, rotation, bounds, est, uncompute=uncompute, prepared=prepare is not None, reason=reason)
     gi = gate_inversion(a, settings, rotation, bounds, prepare=prepare, uncompute=uncompute, _estimate=est)
     return resources_of(gi, estimate=est)
+
+
+def qsvt_resources(
+    a: np.ndarray, settings: CircuitSettings, rotation: Rotation, bounds, *, gate_level: bool = True, require_gate_level: bool = False
+) -> CircuitResources:
+    """Resources of the gate-form QSVT circuit (qgp.circuits.qsvt_inversion): d block-encoding
+    calls, d + 1 projector-controlled phases, the signal qubit's Hadamards and the flag's
+    multi-controlled X; each distinct piece transpiled once (`decompose_circuit`). Gate-level
+    counts are skipped when one call of U alone is over `SYNTHESIS_LIMIT` (estimated as
+    `qgp.circuits.methods.encodings`' controlled-U piece, an upper bound for U itself)."""
+    from qgp.circuits.methods.encodings import get_encoding
+
+    inv = build_inversion(a, settings, rotation, bounds, form="gate")
+    m, d = inv.n_system_qubits, inv.n_oracle_calls
+    enc = get_encoding(settings.encoding)
+    terms = inv.n_pauli_terms or None
+    piece = enc.size_piece(m, terms=terms or 0, n_pe=1, calls=d)
+    synth = enc.synthesis_dependent()
+    skipped = None
+    if not gate_level:
+        skipped = "gate-level counting not requested"
+    elif piece.synthesis_gates > SYNTHESIS_LIMIT:
+        skipped = f"too large to transpile in reasonable time: {piece.largest_piece}"
+        if require_gate_level:
+            raise QgpError(f"cannot count gates of the QSVT circuit: {skipped}; use fewer training points or the lcu encoding")
+    counts = gate_counts_by_basis(decompose_circuit(inv.circuit, open_repeats=False)) if skipped is None else None
+    k = inv.n_block_qubits
+    return CircuitResources(
+        qubits=_qubits(m, 0, k),
+        rotation=rotation,
+        evolution=None,
+        encoding=settings.encoding,
+        clock_qubits=0,
+        uncomputed=False,
+        prepared=False,
+        alpha=inv.alpha,
+        n_pauli_terms=terms,
+        n_block_qubits=k,
+        n_oracle_calls=d,
+        n_phase_estimations=0,
+        oracle_call=f"one call of the {settings.encoding} block encoding U (QSVT, polynomial degree {d})",
+        evolution_time=None,
+        total_evolution_time_per_phase_estimation=None,
+        total_evolution_time=None,
+        trotter_steps_total=None,
+        optimization_level=OPTIMIZATION_LEVEL,
+        gate_counts=counts,
+        composition=_COMPOSITION_NOTE.format(level=OPTIMIZATION_LEVEL, lcu=_LCU_COMPOSITION if terms else "") if counts else None,
+        synthesis_dependent=synth is not None,
+        note=_SYNTHESIS_NOTE.format(what=synth) if synth is not None else "gate counts come from the algorithm's own gates",
+        gate_level_skipped=skipped,
+        size_estimate={"synthesis_gates_per_basis": piece.synthesis_gates, "oracle_calls": d, "largest_piece": piece.largest_piece},
+    )
 
 
 def inference_resources(result) -> dict:

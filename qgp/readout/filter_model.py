@@ -58,7 +58,15 @@ def rotation_amplitudes(inv) -> np.ndarray:
 
 
 def filter_response(inv, eigenvalues) -> np.ndarray:
-    """f(λ) (``inverse``) or h(λ) (``inverse_sqrt``) of the module docstring, per eigenvalue."""
+    """f(λ) (``inverse``) or h(λ) (``inverse_sqrt``) of the module docstring, per eigenvalue.
+
+    For a QSVT circuit (``inv.polynomial`` set, qgp.circuits.qsvt_inversion) the circuit applies
+    its polynomial itself: f(λ) = p(λ/α), h(λ) = q(λ/α)² (GSLW 2019, Thm. 17).
+    """
+    poly = getattr(inv, "polynomial", None)
+    if poly is not None:
+        p = poly(np.asarray(eigenvalues, dtype=float) / inv.alpha)
+        return p if inv.rotation == "inverse" else p**2
     w = qpe_weights(clock_phases(inv, eigenvalues), inv.settings.clock_qubits)
     g = rotation_amplitudes(inv)
     return w @ (g if inv.rotation == "inverse" else g**2)

@@ -22,8 +22,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from qgp.circuits.inversion import InversionCircuit, budget_reference_model
-from qgp.circuits.methods import get_method
+from qgp.circuits.algorithms import algorithm_of
+from qgp.circuits.inversion import InversionCircuit
 from qgp.classical.gp import count_nonpositive, nlpd, rmse
 from qgp.classical.problem import Problem
 from qgp.classical.system import eigenvalue_bounds
@@ -133,8 +133,14 @@ class InferenceResult:
             "sparsity": d.sparsity,
             "noise_variance": p.noise_variance,
             "noise_source": p.noise_source,
-            "encoding": get_method(self.circuit.evolution).encoding(self.circuit),
-            "evolution": self.circuit.evolution,
+            "encoding": algorithm_of(self.circuit).encoding(self.circuit),
+            "evolution": algorithm_of(self.circuit).evolution(self.circuit),
+            "method": self.circuit.method,
+            "polynomial_degree": _poly(self.inverse, "degree"),
+            "polynomial_degree_inverse_sqrt": _poly(self.inverse_sqrt, "degree"),
+            "block_encoding_calls": self.inverse.n_oracle_calls,
+            "polynomial_max_error": _poly(self.inverse, "max_error"),
+            "polynomial_scale": _poly(self.inverse, "scale"),
             "shots": self.readout.shots,
             "seed": self.readout.seed,
             "strategy": self.strategy,
@@ -184,6 +190,12 @@ class InferenceResult:
             }
         check_summary(out, stage="inference")
         return out
+
+
+def _poly(inv: InversionCircuit, attr: str):
+    """An attribute of the circuit's QSVT polynomial (None for phase estimation)."""
+    poly = inv.polynomial
+    return None if poly is None else (int(getattr(poly, attr)) if attr == "degree" else float(getattr(poly, attr)))
 
 
 def _none_if_nan(x: float) -> float | None:
@@ -276,8 +288,8 @@ def _budget(inp: StrategyInputs, out: Outcomes, exact_gp, quantum, sampled, y_no
     model, qgp.circuits.methods.BUDGET_REFERENCE; needs only the clock grid's constants, not a
     circuit) → the chosen oracle → shots."""
     problem, A = inp.problem, inp.A
-    model_inv = budget_reference_model(inp.circuit, "inverse", inp.bounds)
-    model_sqrt = budget_reference_model(inp.circuit, "inverse_sqrt", inp.bounds)
+    algorithm = algorithm_of(inp.circuit)
+    model_inv, model_sqrt = algorithm.budget_models(inp.circuit, inp.bounds, inp.inverse, inp.inverse_sqrt)
     vm = model_operator(model_inv, A) @ inp.yhat
     mp0, mp1 = hadamard_probabilities(vm, inp.khat)
     mpf = variance_probabilities(model_operator(model_sqrt, A), inp.khat)
@@ -286,7 +298,7 @@ def _budget(inp: StrategyInputs, out: Outcomes, exact_gp, quantum, sampled, y_no
     )
     mean_exact, var_exact = exact_gp
     stages = [
-        ("phase_estimation_and_filter", budget_stage(mean_model, var_model, mean_exact, var_exact)),
+        (algorithm.budget_stage, budget_stage(mean_model, var_model, mean_exact, var_exact)),
         ("oracle", budget_stage(quantum[0], quantum[1], mean_exact, var_exact)),
     ]
     if sampled is not None:
@@ -297,7 +309,7 @@ def _budget(inp: StrategyInputs, out: Outcomes, exact_gp, quantum, sampled, y_no
 def _model_difference(inp: StrategyInputs, out: Outcomes) -> float | None:
     """Largest difference between the closed-form model and the simulated operators, where the
     method has an exact closed-form model and operators were simulated."""
-    if not get_method(inp.circuit.evolution).closed_form_model or out.operators is None:
+    if not algorithm_of(inp.circuit).closed_form_model(inp.circuit) or out.operators is None:
         return None
     own_B = model_operator(inp.inverse, inp.A)
     own_M = model_operator(inp.inverse_sqrt, inp.A)
@@ -339,7 +351,7 @@ def infer(
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)
     t0 = time.perf_counter()
-    say(f"building circuits: {circuit.evolution} oracle, {circuit.clock_qubits} clock qubits, {plan.widest()} qubits simulated")
+    say(f"building circuits: {algorithm_of(circuit).label(circuit)}, {circuit.clock_qubits} clock qubits, {plan.widest()} qubits simulated")
     inv, inv_sqrt = cached_pair(A, circuit, bounds)
     timings["build"] = time.perf_counter() - t0
     if plan.block.is_bound or plan.block.qubits != inv.n_block_qubits:

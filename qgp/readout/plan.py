@@ -16,7 +16,7 @@ from collections import OrderedDict
 from dataclasses import dataclass
 
 from qgp.circuits.encoding import lcu_block_qubits
-from qgp.circuits.methods import get_method
+from qgp.circuits.algorithms import algorithm_of
 from qgp.classical.problem import Problem
 from qgp.errors import QgpError
 from qgp.memory import default_memory_cap, require_memory, statevector_bytes
@@ -66,7 +66,7 @@ def check_clock_qubits(settings: CircuitSettings) -> None:
     """What `run` accepts: the derived evolution time t = 2π(1 − 2^(1−c))/λ_hi is 0 at c = 1 (the
     error budget's exact-oracle model needs t for every oracle, the walk included), so one clock
     qubit needs an explicit ``[circuit] evolution_time``."""
-    if settings.clock_qubits < 2 and settings.evolution_time is None:
+    if algorithm_of(settings).uses_clock and settings.clock_qubits < 2 and settings.evolution_time is None:
         from qgp.circuits.phase_estimation import derived_evolution_time
 
         derived_evolution_time(1.0, settings.clock_qubits)  # raises its own one-line error
@@ -146,7 +146,7 @@ def block_register(problem: Problem, settings: CircuitSettings, cap: int, *, dec
     when ``decompose`` and its memory fits under ``cap``; otherwise the counts are the bounds of
     `qgp.circuits.encoding.pauli_term_bounds` (one pass over A).
     """
-    method = get_method(settings.evolution)
+    method = algorithm_of(settings)
     if not method.block_qubits_depend_on_terms(settings):
         return BlockRegister(method.block_qubits(settings))
     from qgp.circuits.encoding import pauli_decomposition_bytes, pauli_term_bounds
@@ -336,21 +336,27 @@ class SimulationPlan:
         }
 
 
-def _resolve(plan: SimulationPlan, requested: str) -> SimulationPlan:
+def _resolve(plan: SimulationPlan, requested: str, available: tuple[str, ...] = STRATEGIES) -> SimulationPlan:
     """``plan`` with its strategy: the requested one, or under "auto" the cheapest by the cost
-    model among those that fit (amortised when none fits: the guard then says what would)."""
+    model among those that fit (amortised when none fits: the guard then says what would).
+    ``available``: the strategies implemented for the inversion method."""
     from dataclasses import replace
 
     if requested != "auto":
+        if requested not in available:
+            raise QgpError(
+                f"[readout] strategy = \"{requested}\" is not available for this [circuit] method; "
+                f"choose one of {available} or \"auto\""
+            )
         return replace(plan, strategy=requested, reason=f"[readout] strategy = \"{requested}\"")
-    cost = {s: plan.estimated_seconds(s) for s in STRATEGIES}
-    fitting = [s for s in STRATEGIES if plan.fits(s)]
+    cost = {s: plan.estimated_seconds(s) for s in available}
+    fitting = [s for s in available if plan.fits(s)]
     if not fitting:
         return replace(plan, strategy="amortised", reason="auto: no strategy fits under the memory cap")
     chosen = min(fitting, key=lambda s: cost[s])
     others = ", ".join(
-        f"{s} {cost[s]:.2g} s" + ("" if s in fitting else " (does not fit)") for s in STRATEGIES if s != chosen
-    )
+        f"{s} {cost[s]:.2g} s" + ("" if s in fitting else " (does not fit)") for s in available if s != chosen
+    ) or "no other strategy implemented for this method"
     return replace(plan, strategy=chosen, reason=f"auto: {chosen}, estimated {cost[chosen]:.2g} s of simulation, against {others} (cost model, qgp.readout.plan)")
 
 
@@ -383,11 +389,11 @@ def simulation_plan(
             "amortised", cap, m, c, block, amortised, per_point, reference, n_test, readout.shots, hybrid,
             requested=readout.strategy,
         )
-        return _resolve(plan, readout.strategy)
+        return _resolve(plan, readout.strategy, algorithm_of(circuit).strategies)
 
     if block_qubits is not None:
         return build(BlockRegister(int(block_qubits)))
-    method = get_method(circuit.evolution)
+    method = algorithm_of(circuit)
     if method.block_qubits_depend_on_terms(circuit):
         bounded = block_register(problem, circuit, cap, decompose=False)
         if not bounded.decomposition_fits:

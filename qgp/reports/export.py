@@ -26,6 +26,7 @@ from pathlib import Path
 
 import numpy as np
 
+from qgp.circuits.algorithms import algorithm_of
 from qgp.circuits.encoding import BLOCK, MultiplexerGate, normalised_amplitudes
 from qgp.circuits.inversion import FLAG
 from qgp.circuits.methods import method_description
@@ -257,6 +258,11 @@ def export_inversions(
     list of Path
         The files written, resources.json last. Each is written atomically.
     """
+    if not algorithm_of(settings).uses_clock:
+        raise QgpError(
+            '`qgp export` writes phase-estimation circuits only so far: OpenQASM export of the QSVT circuits is not '
+            'implemented yet; use [circuit] method = "phase_estimation" to export'
+        )
     names = [INVERSION_FILE, INVERSION_SQRT_FILE] + ([hadamard_file(point.index)] if point else []) + [RESOURCES_FILE]
     out = check_outputs(out_dir, names, force=force, option="--out", inputs=inputs)
     refuse_if_too_large(A, settings, f"the {settings.evolution} inversion circuit")

@@ -13,6 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
+from qgp.circuits.algorithms import algorithm_of
 from qgp.environment import versions
 from qgp.files import atomic_open, atomic_write_text, check_outputs
 from qgp.readout.inference import InferenceResult
@@ -156,6 +157,11 @@ def provenance(result: InferenceResult) -> dict[str, str]:
             "variance_quantum_hadamard": "numpy, from the same B: k̂*ᵀBk̂*",
             "success_probability_inversion": "numpy, from the same B: ‖B·ŷ‖²",
         }
+        if not algorithm_of(result.circuit).uses_clock:
+            out["variance_quantum"] = (
+                f"{sv} statevector run of the `inverse_sqrt` (QSVT, even polynomial q) circuit with a reference register, "
+                "in the same job: M = E†E from its flag = 1 amplitudes, P(flag = 1) = k̂*ᵀMk̂*"
+            )
         sampled = "numpy (np.random.Generator seeded with [readout] seed) from the exact outcome probabilities"
     else:
         out = {
@@ -170,8 +176,14 @@ def provenance(result: InferenceResult) -> dict[str, str]:
         sampled = "Aer (measured circuits, one job, seeded with [readout] seed)"
     out["shots"] = f"counts drawn by {sampled}" if shots > 0 else "none: exact outcome probabilities (shots = 0)"
     out["simulated_form"] = _FORM
+    algorithm = algorithm_of(result.circuit)
+    model = (
+        "the closed-form filter model in numpy (no simulation)"
+        if algorithm.uses_clock
+        else "the QSVT polynomials p(λ/α), q(λ/α)² applied to A's eigenvalues in numpy (no simulation)"
+    )
     out["error_budget"] = (
-        "stage phase_estimation_and_filter: the closed-form filter model in numpy (no simulation); stage oracle: "
+        f"stage {algorithm.budget_stage}: {model}; stage oracle: "
         "the simulated circuits' exact probabilities; stage shots: the sampled estimates"
     )
     out["mean_exact"] = out["variance_exact"] = "the exact GP in numpy/scipy (Cholesky; Rasmussen & Williams Alg. 2.1)"
