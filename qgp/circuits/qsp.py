@@ -33,10 +33,11 @@ each prefix is carried, for all nodes at once.
 Phases are those of QSPPACK with ``targetPre = true``; pyqsp 0.2.0's ``sym_qsp`` (Im U00 target)
 returns Φ_p with π/4·(e_0 + e_d) − Φ_p equal to these to 2e-15 (measured, degrees 21–2001).
 
-Measured on 2 shared cores: Newton converges (node residual ≤ 1e-13, dense-grid residual ≤ 5e-13,
-≤ 8e-12 for 0.5·T_d-like targets at d = 2000) for every target tried — x/(x² + 50⁻²), sin 40x,
-tanh 20x, cos 30x, e^{−20x²}, T_d and random coefficients, d = 21 … 2001 — at max|f| = 0.5, 0.9,
-0.99, 0.999, 0.9999 and 0.99999, in 3, 5, 6, 8, 9–12 and 11–14 iterations. The fixed-point
+Measured on 2 shared cores, with max|f| the true maximum (see `_max_abs`): Newton converges (node
+residual ≤ 1e-13; dense-grid residual ≤ 5e-13 for smooth targets, ≤ 8e-12 for a·T_d and random
+coefficients at d ≥ 1000, where Clenshaw's own error is of that size) for every target tried —
+x/(x² + 50⁻²), sin 40x, tanh 20x, cos 30x, e^{−20x²}, T_d and random coefficients, d = 21 … 2001 —
+at max|f| = 0.5, 0.9, 0.99, 0.999, 0.9999 and 0.99999, in 3, 5, 6, 8, 9–12 and 11–14 iterations. The fixed-point
 iteration ψ ← ψ − J₀⁻¹(F(ψ) − f) (J₀ the Jacobian at 0) needs ≈ 50 iterations at 0.9, ≈ 1500 at
 0.9999 and did not converge in 2000 at 0.99999, so it is not used. Time per call (best of 5, the
 target ≈ cos 40x or x/(x² + 50⁻²) at max|f| = 0.9): 0.01 s at d = 100, 0.1 s at d = 500, 0.3 s at

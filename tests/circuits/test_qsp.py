@@ -81,8 +81,9 @@ def assert_law(result: PhaseFactors, c: np.ndarray, atol: float = 1e-10, x=None)
     assert worst <= atol, f"degree {result.degree}: worst |Re U00 − f| = {worst:.3e} at x = {x[i]:.6f}"
 
 
-# The defining law, Dong, Meng, Whaley & Lin, PRA 103, 042419 (2021), eq. for symmetric QSP with
-# Re⟨0|U|0⟩ as target; degrees 1, 2, 3, 10, 51, 100 and ≥ 1000, odd and even, max|f| 0.5 and 0.95.
+# The defining law of symmetric QSP with Re⟨0|U|0⟩ as target (Dong, Meng, Whaley & Lin, PRA 103,
+# 042419 (2021), as the issue states it); degrees 1, 2, 3, 10, 51, 100 and ≥ 1000, odd and even,
+# max|f| 0.5 and 0.95.
 LAW_CASES = [
     (0, 0.5, "random"),
     (1, 0.5, "random"),
