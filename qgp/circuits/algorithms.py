@@ -79,7 +79,7 @@ ALGORITHMS: dict[str, Algorithm] = {
     a.name: a
     for a in (
         Algorithm("phase_estimation", ("amortised", "per-point", "hybrid"), "phase_estimation_and_filter", True),
-        Algorithm("qsvt", ("amortised",), "polynomial", False),
+        Algorithm("qsvt", ("amortised", "per-point", "hybrid"), "polynomial", False),
     )
 }
 

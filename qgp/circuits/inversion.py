@@ -118,6 +118,8 @@ class InversionCircuit:
     #: (qgp.circuits.polynomials) and the phase factors' measured residual; None for phase estimation.
     polynomial: object | None = field(default=None, repr=False, compare=False)
     phase_residual: float | None = None
+    #: QSVT: the W-convention phase factors of the circuit (qgp.circuits.qsp), shape (d + 1,).
+    phases: np.ndarray | None = field(default=None, repr=False, compare=False)
 
     @property
     def clock_qubits(self) -> int:

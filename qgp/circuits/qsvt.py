@@ -43,9 +43,10 @@ from qgp.circuits.encoding import BLOCK, SYSTEM, BlockEncoding, MultiplexerGate
 from qgp.circuits.phase_estimation import Form, _check_form
 from qgp.errors import QgpError
 
-__all__ = ["FLAG", "reflection_phases", "qsvt_circuit", "qsvt_block", "qsvt_calls"]
+__all__ = ["FLAG", "PROBE", "reflection_phases", "qsvt_circuit", "qsvt_block", "qsvt_calls"]
 
 FLAG = "flag"
+PROBE = "probe"
 
 # Largest U (system + block qubits) fused with its phases into one multiplexer in the simulation
 # form: two 2^10 × 2^10 blocks are 32 MB.
@@ -85,7 +86,7 @@ def _phase_diagonal(phi: float, b: int) -> np.ndarray:
     return np.concatenate((np.exp(1j * phi * reflect), np.exp(-1j * phi * reflect)))
 
 
-def qsvt_circuit(be: BlockEncoding, wx_phases, form: Form = "gate") -> QuantumCircuit:
+def qsvt_circuit(be: BlockEncoding, wx_phases, form: Form = "gate", *, probe: bool = False) -> QuantumCircuit:
     """The QSVT of ``be`` with the polynomial whose W-convention phases are ``wx_phases``.
 
     Parameters
@@ -95,76 +96,106 @@ def qsvt_circuit(be: BlockEncoding, wx_phases, form: Form = "gate") -> QuantumCi
     wx_phases : array, shape (d + 1,)
         Symmetric QSP phases (`qgp.circuits.qsp.qsp_phases`), d ≥ 1.
     form : "gate" or "simulation"
+    probe : bool
+        Simulation form only: add a last qubit ``probe`` and run the whole sequence (global
+        phase i^d included) only on probe = 0; probe = 1 leaves system and block untouched, so
+        its flag ends at 1 — the controlled operation of a Hadamard test of ⟨l|f(A/α)|r⟩.
 
     Returns
     -------
     QuantumCircuit
-        On registers system (m), flag (1), block (b + 1); from |0⟩ on flag and block its
-        amplitudes on flag = 1, block = 0 are f(A/α) applied to the system input.
+        On registers system (m), flag (1), block (b + 1) [, probe (1)]; from |0⟩ on flag and
+        block its amplitudes on flag = 1, block = 0 are f(A/α) applied to the system input.
     """
     _check_form(form)
+    if probe and form != "simulation":
+        raise QgpError("the probe-controlled QSVT sequence is built in the simulation form only")
     phi = reflection_phases(wx_phases)
     d = phi.size - 1
     m, b = be.n_system_qubits, be.n_block_qubits
-    system = QuantumRegister(m, SYSTEM)
-    flag = QuantumRegister(1, FLAG)
-    block = QuantumRegister(b + 1, BLOCK)
-    qc = QuantumCircuit(system, flag, block, name=f"qsvt-{be.kind}")
+    regs = [QuantumRegister(m, SYSTEM), QuantumRegister(1, FLAG), QuantumRegister(b + 1, BLOCK)]
+    if probe:
+        regs.append(QuantumRegister(1, PROBE))
+    qc = QuantumCircuit(*regs, name=f"qsvt-{be.kind}")
+    system, flag, block = regs[0], regs[1], regs[2]
     enc, signal = list(block[:b]), block[b]
-    qc.h(signal)
-    if d % 2:
-        qc.z(signal)  # relative phase (−1)^d between the ±φ branches
+    ctrl = [regs[3][0]] if probe else []
+    opening = (_Z if d % 2 else np.eye(2)) @ _H  # H, then Z: relative phase (−1)^d between the ±φ branches
+    if probe:
+        # i^d on the active branch only: a global phase would also turn the probe = 1 branch.
+        qc.append(MultiplexerGate([1j**d * opening, np.eye(2)], label="open"), [signal, *ctrl], copy=False)
+    else:
+        qc.h(signal)
+        if d % 2:
+            qc.z(signal)
+        qc.global_phase += d * math.pi / 2  # i^d
     fused = form == "simulation" and m + b <= _MAX_FUSED_QUBITS
+    _append_phase(qc, float(phi[d]), enc, signal, form, ctrl)
     if fused:
         u = be.matrix()
         # D±·U for each call, D± the phase that follows it: one multiplexer over the signal.
         cache: dict[float, MultiplexerGate] = {}
-        _append_phase(qc, float(phi[d]), enc, signal, form)
+        dim = 2**m
         for j in range(d - 1, -1, -1):
             key = float(phi[j])
             if key not in cache:
                 diag = _phase_diagonal(key, b)
-                dim = 2**m
                 blocks = [np.repeat(diag[s * 2**b : (s + 1) * 2**b], dim)[:, None] * u for s in (0, 1)]
-                cache[key] = MultiplexerGate(blocks, label="U·phase")
-            qc.append(cache[key], [*system, *enc, signal], copy=False)
+                cache[key] = MultiplexerGate(blocks + [np.eye(u.shape[0])] * (2 * len(ctrl)), label="U·phase")
+            qc.append(cache[key], [*system, *enc, signal, *ctrl], copy=False)
     else:
-        calls = _native_calls(be) if form == "simulation" else [(be.circuit.to_gate(), [*system, *enc])]
-        _append_phase(qc, float(phi[d]), enc, signal, form)
+        calls = _native_calls(be, len(ctrl)) if form == "simulation" else [(be.circuit.to_gate(), list(range(m)) + list(range(m + 1, m + 1 + b)))]
         for j in range(d - 1, -1, -1):
             for gate, qubits in calls:
-                qc.append(gate, qubits if form == "gate" else [qc.qubits[i] for i in qubits], copy=False)
-            _append_phase(qc, float(phi[j]), enc, signal, form)
-    qc.h(signal)
+                qc.append(gate, [qc.qubits[i] for i in qubits], copy=False)
+            _append_phase(qc, float(phi[j]), enc, signal, form, ctrl)
+    if probe:
+        qc.append(MultiplexerGate([_H, np.eye(2)], label="close"), [signal, *ctrl], copy=False)
+    else:
+        qc.h(signal)
     _append_flag(qc, flag[0], list(block), form)
-    qc.global_phase += d * math.pi / 2  # i^d
     return qc
 
 
-def _native_calls(be: BlockEncoding) -> list[tuple]:
+_H = np.array([[1, 1], [1, -1]], dtype=complex) / math.sqrt(2)
+_Z = np.diag([1.0, -1.0]).astype(complex)
+
+
+def _native_calls(be: BlockEncoding, n_ctrl: int = 0) -> list[tuple]:
     """One call of U as instructions the simulators apply natively, on circuit qubit indices
-    (system 0…m−1, block m+1…m+b): for the LCU, PREPARE on the block, SELECT as one multiplexer
-    over the block (sign(c_j)·P_j, identity on unused values) and PREPARE†; otherwise U dense."""
+    (system 0…m−1, block m+1…m+b, then the signal and ``n_ctrl`` probe qubits): for the LCU,
+    PREPARE on the block, SELECT as one multiplexer over the block (sign(c_j)·P_j, identity on
+    unused values) and PREPARE†; otherwise U dense. With a probe, each acts on probe = 0 only."""
     m, b = be.n_system_qubits, be.n_block_qubits
     system, enc = list(range(m)), list(range(m + 1, m + 1 + b))
+    probe = list(range(m + 2 + b, m + 2 + b + n_ctrl))
+
+    def gate(u: np.ndarray, label: str):
+        if not n_ctrl:
+            return UnitaryGate(u, label=label, check_input=False)
+        return MultiplexerGate([u, np.eye(u.shape[0])], label=label)
+
     if be.pauli_op is None or be.prepare_matrix is None:
-        return [(UnitaryGate(be.matrix(), label="U", check_input=False), system + enc)]
+        return [(gate(be.matrix(), "U"), system + enc + probe)]
     eye = np.eye(2**m, dtype=complex)
     mats = [eye] * 2**b
     for j, (pauli, c) in enumerate(zip(be.pauli_op.paulis, be.pauli_op.coeffs.real)):
         mats[j] = np.sign(c) * pauli.to_matrix()
     prep = np.asarray(be.prepare_matrix, dtype=complex)
     return [
-        (UnitaryGate(prep, label="prepare", check_input=False), enc),
-        (MultiplexerGate(mats, label="select"), system + enc),
-        (UnitaryGate(prep.conj().T, label="prepare_dg", check_input=False), enc),
+        (gate(prep, "prepare"), enc + probe),
+        (MultiplexerGate(mats + [eye] * (2**b * n_ctrl), label="select"), system + enc + probe),
+        (gate(prep.conj().T, "prepare_dg"), enc + probe),
     ]
 
 
-def _append_phase(qc: QuantumCircuit, phi: float, enc: list, signal, form: Form) -> None:
-    """e^{iφ(2Π−I)} on signal = 0 and e^{−iφ(2Π−I)} on signal = 1."""
+def _append_phase(qc: QuantumCircuit, phi: float, enc: list, signal, form: Form, ctrl: list = ()) -> None:
+    """e^{iφ(2Π−I)} on signal = 0 and e^{−iφ(2Π−I)} on signal = 1 (on probe = 0 only, with ``ctrl``)."""
     if form == "simulation":
-        qc.append(DiagonalGate(list(_phase_diagonal(phi, len(enc)))), [*enc, signal])
+        diag = _phase_diagonal(phi, len(enc))
+        if ctrl:
+            diag = np.concatenate((diag, np.ones_like(diag)))
+        qc.append(DiagonalGate(list(diag)), [*enc, signal, *ctrl])
         return
     # X on the signal when block = 0 (open controls), RZ(2φ), X again (GSLW Fig. 1).
     cx = XGate().control(len(enc), ctrl_state=0, annotated=False)

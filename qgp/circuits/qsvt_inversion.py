@@ -135,4 +135,5 @@ def build_qsvt_inversion(
         rotation_start=None,
         polynomial=poly,
         phase_residual=float(phases.residual),
+        phases=phases.phases,
     )

@@ -14,6 +14,7 @@ from dataclasses import replace
 import numpy as np
 from qiskit import QuantumCircuit
 
+from qgp.circuits.algorithms import algorithm_of
 from qgp.circuits.inversion import InversionCircuit, build_inversion
 from qgp.classical.system import matrix_key
 from qgp.circuits.phase_estimation import phase_estimation_circuit, phase_oracle
@@ -70,7 +71,10 @@ def cached_pair(A, circuit: CircuitSettings, bounds) -> tuple[InversionCircuit, 
 
 
 def qpe_body(A, circuit: CircuitSettings, bounds, inv: InversionCircuit):
-    """The phase-estimation body of ``inv`` (same oracle and block encoding), for per-point circuits."""
+    """The phase-estimation body of ``inv`` (same oracle and block encoding), for per-point
+    circuits; None for a method without phase estimation (its Hadamard test is built from ``inv``)."""
+    if not algorithm_of(circuit).uses_clock:
+        return None
 
     def make():
         oracle = inv.oracle

@@ -465,6 +465,35 @@ class _HadamardTemplate:
         return qc
 
 
+class _QsvtHadamardTemplate:
+    """The Hadamard test of a QSVT inversion: k̂_right on probe = 0 and k̂_left on probe = 1, the
+    QSVT sequence on probe = 0 only (qgp.circuits.qsvt, ``probe=True``: probe = 1 keeps its input
+    with flag = 1), Hadamards on the probe. Same read-out as `_HadamardTemplate`."""
+
+    def __init__(self, inv: InversionCircuit):
+        from qgp.circuits.qsvt import qsvt_circuit
+
+        self.body = qsvt_circuit(inv.block_encoding, inv.phases, "simulation", probe=True)
+        self.regs = list(self.body.qregs)
+
+    def circuit(self, left: np.ndarray, right: np.ndarray, measure: bool = False) -> QuantumCircuit:
+        qc = QuantumCircuit(*self.regs, name="hadamard-test")
+        system, probe = self.regs[0], self.regs[-1]
+        qc.h(probe[0])
+        prep = MultiplexerGate([amplitude_encoding_matrix(right), amplitude_encoding_matrix(left)], label="prep")
+        qc.append(prep, [*system, probe[0]], copy=False)
+        qc.compose(self.body, inplace=True, copy=False)
+        qc.h(probe[0])
+        if measure:
+            _measure(qc, [probe, *self.regs[1:-1]])
+        return qc
+
+
+def _template(qpe: QuantumCircuit | None, inv: InversionCircuit):
+    """The Hadamard-test template: phase estimation's from its body, QSVT's (``qpe`` None) from ``inv``."""
+    return _HadamardTemplate(qpe, inv) if qpe is not None else _QsvtHadamardTemplate(inv)
+
+
 def hadamard_test_circuit(
     qpe: QuantumCircuit, inv: InversionCircuit, left: np.ndarray, right: np.ndarray, *, measure: bool = False
 ) -> QuantumCircuit:
@@ -474,7 +503,7 @@ def hadamard_test_circuit(
     last qubit. With ``measure`` the probe, flag, clock and block are measured into ``c_``
     registers of the same names.
     """
-    return _HadamardTemplate(qpe, inv).circuit(left, right, measure)
+    return _template(qpe, inv).circuit(left, right, measure)
 
 
 def variance_circuit(body: QuantumCircuit, khat: np.ndarray, *, measure: bool = False) -> QuantumCircuit:
@@ -483,7 +512,7 @@ def variance_circuit(body: QuantumCircuit, khat: np.ndarray, *, measure: bool = 
     qc.compose(amplitude_encoding(khat, native=True), qubits=list(qc.qregs[0]), inplace=True, copy=False)
     qc.compose(body, inplace=True, copy=False)
     if measure:
-        _measure(qc, [qc.qregs[2]])
+        _measure(qc, [r for r in qc.qregs if r.name == FLAG])
     return qc
 
 
@@ -511,7 +540,7 @@ def per_point_probabilities(
     The shared body is built once and every circuit is native to Aer, so nothing is transpiled.
     """
     n_test = khat.shape[1]
-    template = _HadamardTemplate(qpe, inverse)
+    template = _template(qpe, inverse)
     mean_circuits = [template.circuit(khat[:, j], yhat) for j in range(n_test)]
     var_circuits = [variance_circuit(sqrt_body, khat[:, j]) for j in range(n_test)]
 
@@ -549,7 +578,7 @@ def per_point_hadamard(
     timings: dict | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """(P₀, P₁) of the Hadamard test of ⟨left_j|C·Ã⁻¹|right_j⟩ for each column pair j."""
-    template = _HadamardTemplate(qpe, inverse)
+    template = _template(qpe, inverse)
     circuits = [template.circuit(left[:, j], right[:, j]) for j in range(left.shape[1])]
     out = run_statevectors(circuits, cap=cap, timings=timings, reduce=lambda _, sv: _hadamard_outcome(sv, inverse))
     return np.array([o[0] for o in out]), np.array([o[1] for o in out])
@@ -568,20 +597,19 @@ def per_point_counts(
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Counts (n₀Π, n₁Π, n_flag) from measured per-point circuits, sampled by the simulator."""
     n_test = khat.shape[1]
-    template = _HadamardTemplate(qpe, inverse)
+    template = _template(qpe, inverse)
     mean_circuits = [template.circuit(khat[:, j], yhat, measure=True) for j in range(n_test)]
     var_circuits = [variance_circuit(sqrt_body, khat[:, j], measure=True) for j in range(n_test)]
     counts = run_counts(mean_circuits + var_circuits, shots, seed, cap=cap)
+    measured = [c.name[2:] for c in mean_circuits[0].cregs]  # "c_<register>", in order of measurement
     n0, n1, nf = np.zeros(n_test, int), np.zeros(n_test, int), np.zeros(n_test, int)
-    has_block = inverse.n_block_qubits > 0
     for j in range(n_test):
         for key, cnt in counts[j].items():
-            parts = key.split()  # registers in reverse order of addition: block, clock, flag, probe
-            fields = parts[::-1]
-            probe, flag, clock = fields[0], fields[1], fields[2]
-            block = fields[3] if has_block else "0"
-            if flag == "1" and int(clock, 2) == 0 and int(block, 2) == 0:
-                if probe == "0":
+            # Registers in the key: reverse order of measurement (probe, flag, then clock and/or block).
+            values = dict(zip(measured, key.split()[::-1]))
+            rest = [v for name, v in values.items() if name not in (PROBE, FLAG)]
+            if values[FLAG] == "1" and all(int(v, 2) == 0 for v in rest):
+                if values[PROBE] == "0":
                     n0[j] += cnt
                 else:
                     n1[j] += cnt
