@@ -33,6 +33,9 @@ class Algorithm:
     strategies: tuple[str, ...]
     budget_stage: str
     uses_clock: bool
+    #: Legend labels of the run's filter figure: the idealised response and its lower cut.
+    model_label: str = "filter model"
+    floor_label: str = "filter floor"
 
     def label(self, settings) -> str:
         """Figure and text label, e.g. ``"walk + LCU"`` or ``"QSVT + dilation"``."""
@@ -79,7 +82,10 @@ ALGORITHMS: dict[str, Algorithm] = {
     a.name: a
     for a in (
         Algorithm("phase_estimation", ("amortised", "per-point", "hybrid"), "phase_estimation_and_filter", True),
-        Algorithm("qsvt", ("amortised", "per-point", "hybrid"), "polynomial", False),
+        Algorithm(
+            "qsvt", ("amortised", "per-point", "hybrid"), "polynomial", False,
+            model_label="polynomial p(λ/α)/C", floor_label="λ_lo (polynomial range)",
+        ),
     )
 }
 

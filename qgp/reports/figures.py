@@ -13,6 +13,7 @@ matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
+from qgp.circuits.algorithms import algorithm_of
 from qgp.files import atomic_open  # noqa: E402
 from qgp.readout.filter_model import filter_response  # noqa: E402
 from qgp.readout.inference import InferenceResult  # noqa: E402
@@ -95,20 +96,22 @@ def filter_figure(result: InferenceResult, stem: Path) -> list[Path]:
     """The effective 1/λ̃ the circuit applies against the exact 1/λ, over A's eigenvalues.
 
     Points: the circuit's own operator B ≈ C·Ã⁻¹ in A's eigenbasis, diag(VᵀBV)/C (amortised runs);
-    curve: the closed-form filter model of qgp.readout.filter_model for the same circuit.
+    curve: the closed-form filter model of qgp.readout.filter_model for the same circuit (for QSVT
+    its polynomial).
     """
     A = result.problem.A_padded
     lam, V = np.linalg.eigh(A)
     inv = result.inverse
+    algorithm = algorithm_of(result.circuit)
     grid = np.linspace(max(lam[0] * 0.5, 1e-12), lam[-1] * 1.05, 600)
     with figure_style():
         fig, ax = plt.subplots(figsize=SINGLE_COLUMN)
         ax.plot(grid, 1 / grid, color=PALETTE[7], lw=0.8, label="exact 1/λ")
-        ax.plot(grid, filter_response(inv, grid) / inv.scale, color=PALETTE[0], label="filter model")
+        ax.plot(grid, filter_response(inv, grid) / inv.scale, color=PALETTE[0], label=algorithm.model_label)
         if result.operators is not None:
             eff = np.real(np.einsum("ij,ik,kj->j", V, result.operators.B, V)) / inv.scale
             ax.plot(lam, eff, "o", ms=3, color=PALETTE[1], label="circuit, at A's eigenvalues")
-        ax.axvline(inv.floor, color=PALETTE[2], lw=0.7, ls=":", label="filter floor")
+        ax.axvline(inv.floor, color=PALETTE[2], lw=0.7, ls=":", label=algorithm.floor_label)
         ax.set_xscale("log")
         ax.set_yscale("log")
         ax.set_xlabel("eigenvalue λ of A")
