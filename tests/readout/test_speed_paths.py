@@ -353,11 +353,16 @@ def test_bench_quick_json_runs(capsys):
     doc = json.loads(capsys.readouterr().out)
     assert doc["mode"] == "quick"
     for key in ("amortised_speedup", "amortised_vs_batched", "classical_ratio", "sweep_speedup_2_workers",
-                "largest_qubits_60s", "peak_memory_mb", "floor_ratio_17q", "floor_ratio_24q", "large_n"):
+                "largest_qubits_60s", "peak_memory_mb", "floor_ratio_17q", "floor_ratio_24q", "large_n",
+                "qsvt_calls_per_second", "qsvt_degree_1000_seconds"):
         assert key in doc["figures"]
     assert set(doc["figures"]["large_n"]) == {"n", "test_points", "seconds", "strategy", "engine"}
     # The engine and Aer read the same circuit in the floor case.
     assert doc["floor"]["17q"]["max_abs_difference"] < 1e-12
+    # And the same QSVT circuits (inversion and reference register), every call fused at n = 16.
+    qsvt = doc["qsvt"]["call_rate"]
+    assert qsvt["fused"] and qsvt["fused_calls"] == qsvt["block_encoding_calls"]
+    assert max(qsvt["inversion"]["max_abs_difference"], qsvt["reference"]["max_abs_difference"]) < 1e-12
     # Same answers from every strategy: the speed comparison is between equal computations.
     assert doc["amortised"]["per_point_naive"]["max_abs_difference"] < TOL
     assert doc["amortised"]["batched_max_abs_difference"] < TOL
