@@ -13,6 +13,16 @@
   C′ (and for a test point ‖y‖, ‖k*‖, the prior mean) and how to turn each file's probabilities
   into numbers, with the package versions and the platform that synthesised the gates.
 
+For ``[circuit] method = "qsvt"`` (no clock; registers ``system | flag | block``, the block
+encoding's qubits then the QSVT signal qubit last) the two inversion files hold the state
+preparation and the QSVT sequence of `qgp.circuits.qsvt` with the odd polynomial p ≈ s·a/x
+(``inversion.qasm``, read with flag = 1, block = 0: amplitudes p(A/α)ŷ ≈ C·A⁻¹ŷ) and the even
+q ≈ s·√(a/|x|) (``inversion_sqrt.qasm``, read with flag = 1: P = ‖q(A/α)ŷ‖² ≈ C′·ŷᵀA⁻¹ŷ);
+``resources.json`` holds `qgp.circuits.resources.qsvt_resources` (gate counts of the file as
+written, state preparation included), C, C′, α, κ_b and each polynomial (degree, scale s,
+measured relative error, Chebyshev coefficients). The QSVT Hadamard test is not exported yet
+(``--test-point`` is refused).
+
 The file format is `qgp.circuits.qasm`'s. Files are written atomically, and an export never
 replaces files of an earlier one unless forced (`qgp.files`).
 """
@@ -21,24 +31,35 @@ from __future__ import annotations
 
 import json
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
 
 from qgp.circuits.algorithms import algorithm_of
-from qgp.circuits.encoding import BLOCK, MultiplexerGate, normalised_amplitudes
-from qgp.circuits.inversion import FLAG
+from qgp.circuits.encoding import (
+    BLOCK,
+    SYSTEM,
+    MultiplexerGate,
+    check_matrix,
+    normalised_amplitudes,
+    pauli_decomposition,
+    pauli_terms_bound,
+)
+from qgp.circuits.inversion import FLAG, InversionCircuit, build_inversion
 from qgp.circuits.methods import method_description
 from qgp.circuits.phase_estimation import CLOCK
 from qgp.circuits.qasm import FORMAT_NOTE, number_text, to_qasm3
 from qgp.circuits.resources import (
     BASES,
+    SYNTHESIS_LIMIT,
+    CircuitResources,
     DecomposedCircuit,
     GateInversion,
     decompose_circuit,
     gate_counts_by_basis,
     gate_inversion,
+    qsvt_resources,
     resources_of,
     size_estimate,
 )
@@ -52,7 +73,11 @@ __all__ = [
     "INVERSION_SQRT_FILE",
     "RESOURCES_FILE",
     "PROJECTORS",
+    "QSVT_PROJECTORS",
     "HADAMARD_PROJECTOR",
+    "projectors_of",
+    "exported_inversion",
+    "file_resources",
     "HadamardPoint",
     "hadamard_file",
     "gate_counts_by_origin",
@@ -74,8 +99,27 @@ PROJECTORS = {
     INVERSION_FILE: {FLAG: 1, CLOCK: 0, BLOCK: 0},
     INVERSION_SQRT_FILE: {FLAG: 1},
 }
+#: The same for ``method = "qsvt"`` (no clock register; flag = 1 is set exactly on block = 0).
+QSVT_PROJECTORS = {
+    INVERSION_FILE: {FLAG: 1, BLOCK: 0},
+    INVERSION_SQRT_FILE: {FLAG: 1},
+}
 #: The Hadamard-test file is read with these values, separately for probe = 0 and probe = 1.
 HADAMARD_PROJECTOR = {FLAG: 1, CLOCK: 0, BLOCK: 0}
+
+_QSVT_REGISTERS_NOTE = (
+    "With [circuit] method = \"qsvt\" there is no clock register: the registers are system | flag | block, "
+    "block holding the block encoding's qubits and, last, the QSVT signal qubit."
+)
+_QSVT_HADAMARD_NOTE = (
+    "not written yet for [circuit] method = \"qsvt\": `qgp export --test-point` is refused; the predictive mean "
+    "of a test point needs the Hadamard test of the QSVT circuit, which qgp does not export so far"
+)
+
+
+def projectors_of(settings: CircuitSettings) -> dict:
+    """`PROJECTORS` (phase estimation) or `QSVT_PROJECTORS` (no clock) for ``settings``."""
+    return PROJECTORS if algorithm_of(settings).uses_clock else QSVT_PROJECTORS
 
 
 def hadamard_file(j: int) -> str:
@@ -99,8 +143,15 @@ def hadamard_file(j: int) -> str:
 # Export of a config's inversion circuits
 
 
-def reading_text(file: str, vector: str = "yhat = y/|y|, y the padded, centred training targets") -> str:
-    """How to turn the file's post-selection probability into numbers (plain ASCII for any reader)."""
+def reading_text(
+    file: str, vector: str = "yhat = y/|y|, y the padded, centred training targets", *, clock: bool = True
+) -> str:
+    """How to turn the file's post-selection probability into numbers (plain ASCII for any reader).
+
+    ``clock = False`` for the QSVT files (no clock register; the amplitudes are a polynomial of A/alpha).
+    """
+    if not clock:
+        return _qsvt_reading_text(file, vector)
     if file == INVERSION_SQRT_FILE:
         return (
             f"Run {file} from |0...0> and let P be the probability of flag=1 (all other registers summed). "
@@ -115,8 +166,57 @@ def reading_text(file: str, vector: str = "yhat = y/|y|, y the padded, centred t
     )
 
 
+def _qsvt_reading_text(file: str, vector: str) -> str:
+    if file == INVERSION_SQRT_FILE:
+        return (
+            f"Run {file} from |0...0> and let P be the probability of flag=1 (all other registers summed; flag=1 "
+            "is set only on block=0). P = |q(A/alpha) yhat|^2 with q the even polynomial of constants (Chebyshev "
+            f"coefficients of x = lambda/alpha), q(x) ~ s*sqrt(a/|x|), a = 1/kappa_b; so P ~ C'*yhat^T A^-1 yhat ({vector}; "
+            "C' = scale_inverse_sqrt = s^2*lambda_lo), yhat^T A^-1 yhat ~ P/C' and y^T A^-1 y = y_norm^2*P/C'."
+        )
+    tail = "" if file != INVERSION_FILE else " and |A^-1 y| = y_norm*sqrt(P)/C"
+    return (
+        f"Run {file} from |0...0> and let P be the probability of flag=1, block=0 (flag=1 is set only on block=0). "
+        "The system amplitudes there are p(A/alpha)*yhat, p the odd polynomial of constants (Chebyshev coefficients "
+        f"of x = lambda/alpha), p(x) ~ s*a/x, a = 1/kappa_b; so they are ~ C*A^-1*yhat ({vector}; C = scale_inverse = "
+        "s*lambda_lo) to the polynomial's relative error max_error, the normalised system state is "
+        f"~ A^-1 yhat/|A^-1 yhat| and |A^-1 yhat| ~ sqrt(P)/C{tail}."
+    )
+
+
+def _is_qsvt(inv: InversionCircuit) -> bool:
+    return not algorithm_of(inv.settings).uses_clock
+
+
+def _qsvt_constants(inv: InversionCircuit) -> dict:
+    """C, alpha, kappa_b and the polynomial of a QSVT inversion (what turns its probabilities into numbers)."""
+    poly = inv.polynomial
+    return {
+        "scale": inv.scale,
+        "alpha": inv.alpha,
+        "effective_condition_number": inv.effective_condition_number,
+        "bounds": list(inv.bounds),
+        "block_encoding": inv.settings.encoding,
+        "block_encoding_calls": inv.n_oracle_calls,
+        "polynomial": {
+            "kind": poly.kind,
+            "degree": int(poly.degree),
+            "scale": float(poly.scale),
+            "max_error": float(poly.max_error),
+            "max_abs": float(poly.max_abs),
+            "condition_number": float(poly.condition_number),
+            "construction": poly.construction,
+            "basis": "Chebyshev: p(x) = sum_k coefficients[k]*T_k(x), x = lambda/alpha",
+            "coefficients": [float(c) for c in poly.coefficients],
+        },
+        "phase_residual": None if inv.phase_residual is None else float(inv.phase_residual),
+    }
+
+
 def constants_document(gi: GateInversion) -> dict:
     inv = gi.inversion
+    if _is_qsvt(inv):
+        return _qsvt_constants(inv)
     return {
         "scale": inv.scale,
         "alpha": inv.alpha,
@@ -129,8 +229,23 @@ def constants_document(gi: GateInversion) -> dict:
     }
 
 
+def _qsvt_header_lines(title: str, inv: InversionCircuit, file: str, *, measure: bool) -> list[str]:
+    poly = inv.polynomial
+    proj = ", ".join(f"{k}={v}" for k, v in QSVT_PROJECTORS.get(file, QSVT_PROJECTORS[INVERSION_FILE]).items())
+    return [
+        title,
+        f"rotation {inv.rotation}, QSVT of the {inv.settings.encoding} block encoding of A/alpha, "
+        f"alpha = {number_text(inv.alpha)}, kappa_b = {number_text(inv.effective_condition_number)}, polynomial "
+        f"degree {poly.degree} ({inv.n_oracle_calls} block-encoding calls), relative error "
+        f"{number_text(poly.max_error)}; no clock; C = {number_text(inv.scale)}",
+        f"read with {proj}" + ("; every register r measured into c_r" if measure else "") + "; written by qgp (qgp export)",
+    ]
+
+
 def header_lines(title: str, gi: GateInversion, file: str, *, measure: bool = False) -> list[str]:
     inv = gi.inversion
+    if _is_qsvt(inv):
+        return _qsvt_header_lines(title, inv, file, measure=measure)
     s = inv.settings
     proj = ", ".join(f"{k}={v}" for k, v in PROJECTORS.get(file, PROJECTORS[INVERSION_FILE]).items())
     return [
@@ -141,7 +256,40 @@ def header_lines(title: str, gi: GateInversion, file: str, *, measure: bool = Fa
     ]
 
 
+def _qsvt_call_size(m: int, settings: CircuitSettings, terms: int) -> tuple[int, str]:
+    """Gates to synthesise for one call of the block encoding (its controlled form's estimate, as
+    `qsvt_resources` counts it: an upper bound) and a description."""
+    from qgp.circuits.methods.encodings import get_encoding
+
+    piece = get_encoding(settings.encoding).size_piece(m, terms=terms, n_pe=1, calls=1)
+    return piece.synthesis_gates, (
+        f"one call of the {settings.encoding} block encoding on {m} system qubits synthesises to ≈ "
+        f"{piece.synthesis_gates:,} gates per basis (limit {SYNTHESIS_LIMIT:,})"
+    )
+
+
+# Above this many system qubits A's Pauli decomposition is not computed for the size check (the bound is used).
+_MAX_TERM_COUNT_QUBITS = 10
+
+
+def _refuse_qsvt_if_too_large(m: int, settings: CircuitSettings, what: str, terms: int) -> None:
+    gates, text = _qsvt_call_size(m, settings, terms)
+    if gates > SYNTHESIS_LIMIT:
+        raise QgpError(
+            f"{what} is too large to decompose and export in reasonable time: {text}; use fewer training points"
+            + (" or the lcu encoding" if settings.encoding == "dilation" else "")
+        )
+
+
 def refuse_if_too_large(A, settings: CircuitSettings, what: str) -> None:
+    if not algorithm_of(settings).uses_clock:
+        a = check_matrix(A)
+        m = a.shape[0].bit_length() - 1
+        terms = 0
+        if settings.encoding == "lcu":  # A's own term count where decomposing it is cheap, else the bound
+            terms = len(pauli_decomposition(a)) if m <= _MAX_TERM_COUNT_QUBITS else pauli_terms_bound(m)
+        _refuse_qsvt_if_too_large(m, settings, what, terms)
+        return
     # The inverse file (with its uncompute) is the larger of the two; the Hadamard test has the
     # same two phase estimations.
     est = size_estimate(A, settings, uncompute=True, prepare=True)
@@ -213,6 +361,114 @@ def _hadamard_text(gi: GateInversion, b: np.ndarray, point: HadamardPoint, title
     return file, dec, to_qasm3(dec, header, measure=measure)
 
 
+def _qsvt_named(dec: DecomposedCircuit) -> DecomposedCircuit:
+    """Readable piece names for a QSVT file: ``prepare_…`` for the state preparation (pieces on
+    ``system`` alone before anything else), ``block_encoding_<kind>`` for one call of U,
+    ``set_flag`` for flag ⊕= [block = 0] and ``signal_x_on_block0`` for the X of the
+    projector-controlled phases."""
+    offsets, sizes = {}, dict(dec.registers)
+    at = 0
+    for name, size in dec.registers:
+        offsets[name] = at
+        at += size
+    system = set(range(offsets[SYSTEM], offsets[SYSTEM] + sizes[SYSTEM]))
+    flag = offsets[FLAG]
+    signal = offsets[BLOCK] + sizes[BLOCK] - 1
+    renamed: dict[str, str] = {}
+    preparing = True
+    for run in dec.runs:
+        piece = dec.pieces[run.key]
+        if preparing and set(run.qubits) <= system:
+            renamed.setdefault(run.key, "prepare_" + piece.name)
+            continue
+        preparing = False
+        if flag in run.qubits:
+            renamed.setdefault(run.key, "set_flag")
+        elif system & set(run.qubits):
+            renamed.setdefault(run.key, "block_encoding_" + piece.name)
+        elif run.qubits[-1] == signal and piece.n_qubits > 1:
+            renamed.setdefault(run.key, "signal_x_on_block0")
+    return replace(dec, pieces={k: replace(p, name=renamed.get(k, p.name)) for k, p in dec.pieces.items()})
+
+
+def exported_inversion(A, settings: CircuitSettings, rotation, bounds, *, prepare=None) -> GateInversion:
+    """The gate-form inversion circuit an export writes, as runs of pieces, for either method.
+
+    Phase estimation: `qgp.circuits.resources.gate_inversion` (with its size check). QSVT: the
+    gate form of `qgp.circuits.qsvt_inversion.build_qsvt_inversion` split into its top-level
+    pieces (as `qsvt_resources` splits it), each named by role.
+    """
+    if algorithm_of(settings).uses_clock:
+        return gate_inversion(A, settings, rotation, bounds, prepare=prepare)
+    inv = build_inversion(A, settings, rotation, bounds, prepare=prepare, form="gate")
+    dec = _qsvt_named(decompose_circuit(inv.circuit, open_repeats=False))
+    return GateInversion(inversion=inv, decomposed=dec, prepared=prepare is not None, n_pauli_terms=inv.n_pauli_terms or None)
+
+
+def file_resources(A, gi: GateInversion) -> CircuitResources:
+    """Resources of the circuit ``gi`` holds (as written to a file): `resources_of` for phase
+    estimation; for QSVT `qsvt_resources` of the same A, settings, rotation and bounds, with the
+    gate counts and depth of the circuit as written (state preparation included when prepared)."""
+    inv = gi.inversion
+    if not _is_qsvt(inv):
+        return resources_of(gi)
+    res = qsvt_resources(check_matrix(A), inv.settings, inv.rotation, inv.bounds, require_gate_level=True)
+    return replace(res, prepared=gi.prepared, gate_counts=gate_counts_by_basis(gi.decomposed))
+
+
+def _hadamard_refusal() -> QgpError:
+    return QgpError(
+        "--test-point: the Hadamard test of the QSVT circuits is not exported yet; export without --test-point "
+        '(inversion.qasm, inversion_sqrt.qasm and resources.json), or use [circuit] method = "phase_estimation"'
+    )
+
+
+def _export_qsvt_inversions(A, settings, bounds, yhat, out_dir, *, title, extra, measure, point, force, inputs) -> list[Path]:
+    """`export_inversions` for ``method = "qsvt"`` (module docstring)."""
+    if point is not None:
+        raise _hadamard_refusal()
+    names = [INVERSION_FILE, INVERSION_SQRT_FILE, RESOURCES_FILE]
+    out = check_outputs(out_dir, names, force=force, option="--out", inputs=inputs)
+    refuse_if_too_large(A, settings, f"the QSVT ({settings.encoding}) inversion circuit")
+    b = normalised_amplitudes(yhat)
+    inv = exported_inversion(A, settings, "inverse", bounds, prepare=b)
+    inv_sqrt = exported_inversion(A, settings, "inverse_sqrt", bounds, prepare=b)
+    resources = {file: file_resources(A, gi).as_dict() for file, gi in ((INVERSION_FILE, inv), (INVERSION_SQRT_FILE, inv_sqrt))}
+    doc = {
+        "format": f"{FORMAT_NOTE} {_QSVT_REGISTERS_NOTE}",
+        **(extra or {}),
+        "method": settings.method,
+        "qubits": resources[INVERSION_FILE]["qubits"],
+        "scale_inverse": inv.inversion.scale,
+        "scale_inverse_sqrt": inv_sqrt.inversion.scale,
+        "alpha": inv.inversion.alpha,
+        "effective_condition_number": inv.inversion.effective_condition_number,
+        "projectors": QSVT_PROJECTORS,
+        "measured": bool(measure),
+        "reading": {file: reading_text(file, clock=False) for file in (INVERSION_FILE, INVERSION_SQRT_FILE)},
+        "gate_counts": {},
+        "resources": {},
+        "constants": {},
+        "hadamard_test": _QSVT_HADAMARD_NOTE,
+    }
+    texts: dict[str, str] = {}
+    for file, gi in ((INVERSION_FILE, inv), (INVERSION_SQRT_FILE, inv_sqrt)):
+        doc["gate_counts"][file] = resources[file]["gate_counts"]
+        doc["resources"][file] = resources[file]
+        doc["constants"][file] = constants_document(gi)
+        texts[file] = to_qasm3(gi.decomposed, header_lines(title, gi, file, measure=measure), measure=measure)
+    doc["versions"] = qiskit_versions()
+    doc["platform"] = platform_info()
+    out.mkdir(parents=True, exist_ok=True)
+    paths = []
+    for file, text in texts.items():
+        atomic_write_text(out / file, text)
+        paths.append(out / file)
+    atomic_write_text(out / RESOURCES_FILE, json.dumps(doc, indent=2) + "\n")
+    paths.append(out / RESOURCES_FILE)
+    return paths
+
+
 def export_inversions(
     A,
     settings: CircuitSettings,
@@ -246,7 +502,8 @@ def export_inversions(
     measure : bool
         Measure every register at the end into ``c_<name>`` (see `to_qasm3`).
     point : HadamardPoint, optional
-        Also write ``hadamard_test_<index>.qasm`` and its constants under ``test_point``.
+        Also write ``hadamard_test_<index>.qasm`` and its constants under ``test_point`` (phase
+        estimation only: refused with ``method = "qsvt"``).
     force : bool
         Replace files of an earlier export; without it existing files are refused (QgpError)
         before anything is built.
@@ -259,9 +516,9 @@ def export_inversions(
         The files written, resources.json last. Each is written atomically.
     """
     if not algorithm_of(settings).uses_clock:
-        raise QgpError(
-            '`qgp export` writes phase-estimation circuits only so far: OpenQASM export of the QSVT circuits is not '
-            'implemented yet; use [circuit] method = "phase_estimation" to export'
+        return _export_qsvt_inversions(
+            A, settings, bounds, yhat, out_dir, title=title, extra=extra, measure=measure, point=point, force=force,
+            inputs=inputs,
         )
     names = [INVERSION_FILE, INVERSION_SQRT_FILE] + ([hadamard_file(point.index)] if point else []) + [RESOURCES_FILE]
     out = check_outputs(out_dir, names, force=force, option="--out", inputs=inputs)
@@ -338,7 +595,8 @@ def export_config(cfg: Config, out_dir, *, measure: bool = False, test_point: in
         Measure every register at the end (``qgp export --measure``).
     test_point : int, optional
         Also write the Hadamard test of this test point (0-based row of the test inputs, or of the
-        training inputs when the config has no test file) and the constants of its mean.
+        training inputs when the config has no test file) and the constants of its mean (phase
+        estimation only: refused with ``method = "qsvt"``).
     force : bool
         Overwrite files of an earlier export.
 
@@ -350,6 +608,8 @@ def export_config(cfg: Config, out_dir, *, measure: bool = False, test_point: in
     from qgp.classical.problem import problem_from_config
     from qgp.classical.system import eigenvalue_bounds
 
+    if test_point is not None and not algorithm_of(cfg.circuit).uses_clock:
+        raise _hadamard_refusal()
     names = [INVERSION_FILE, INVERSION_SQRT_FILE] + ([hadamard_file(test_point)] if test_point is not None else [])
     inputs = [cfg.source] if cfg.source else []
     check_outputs(out_dir, names + [RESOURCES_FILE], force=force, option="--out", inputs=inputs)
@@ -441,6 +701,9 @@ def _refuse_size_from_config(cfg: Config) -> None:
     except QgpError:
         return  # the problem builder reports data errors with their own message
     m = padded_size(n).bit_length() - 1
+    if not algorithm_of(cfg.circuit).uses_clock:
+        _refuse_qsvt_if_too_large(m, cfg.circuit, f"the QSVT ({cfg.circuit.encoding}) inversion circuit for {n} training points", 1)
+        return
     est = estimate_size(m, cfg.circuit, uncompute=True, prepare=True, n_pauli_terms=1)
     if not est.within_limits:
         raise QgpError(

@@ -2,7 +2,7 @@
 
     python -m qgp.tools.catalogue --catalogue circuits      (documented alias: python -m qgp.export …)
 
-holds the published worked examples and the bundled demo as ``<name>.qasm`` plus ``<name>.json``;
+holds the published worked examples, the bundled demo and a QSVT circuit as ``<name>.qasm`` plus ``<name>.json``;
 the command regenerates them in place. It also exports a config (``CONFIG --out DIR``), like
 ``qgp export``. A tool: nothing in the library imports it.
 """
@@ -18,21 +18,24 @@ from pathlib import Path
 
 import numpy as np
 
+from qgp.circuits.algorithms import algorithm_of
 from qgp.circuits.encoding import normalised_amplitudes
 from qgp.circuits.inversion import build_inversion, postselected_system_amplitudes
 from qgp.circuits.methods import method_of
 from qgp.reports.export import (
     INVERSION_FILE,
-    PROJECTORS,
     export_config,
     constants_document,
+    exported_inversion,
+    file_resources,
     gate_counts_by_origin,
     header_lines,
+    projectors_of,
     reading_text,
     refuse_if_too_large,
 )
 from qgp.circuits.qasm import FORMAT_NOTE, to_qasm3
-from qgp.circuits.resources import GateInversion, gate_inversion, resources_of
+from qgp.circuits.resources import GateInversion
 from qgp.environment import platform_info, qiskit_versions
 from qgp.errors import QgpError
 from qgp.files import atomic_write_text, check_outputs
@@ -49,7 +52,7 @@ __all__ = [
     "main",
 ]
 
-CATALOGUE = ("cao2012_exact", "hhl_2x2_exact", "demo_walk_dilation")
+CATALOGUE = ("cao2012_exact", "hhl_2x2_exact", "demo_walk_dilation", "qsvt_4x4_dilation")
 REGENERATE_COMMAND = "python -m qgp.export --catalogue circuits"
 
 
@@ -127,6 +130,20 @@ def catalogue_entry(name: str) -> CatalogueEntry:
             bounds_note="the a-priori bounds of qgp.classical.system.eigenvalue_bounds (Gershgorin above, max(Gershgorin, sigma^2) below)",
             note="c from the config (8): the file stays < 1 MB because the controlled walk is defined once and called 510 times",
         )
+    if name == "qsvt_4x4_dilation":
+        return CatalogueEntry(
+            name=name,
+            title="QSVT inversion of the Cao et al. (2012) 4x4 example (cao2012_exact's A and b), dilation encoding",
+            source="A and b of cao2012_exact: 3.75*II + 1.25*XZ + 0.75*YY + 2.25*ZX (qiskit label order), eigenvalues 1, 2, 4, 8",
+            A=_cao_matrix(),
+            b=np.full(4, 0.5),
+            b_note="b = (1, 1, 1, 1)/2, uniform (our choice)",
+            settings=CircuitSettings(method="qsvt", clock_qubits=0, encoding="dilation", target_error=1e-2),
+            bounds=(1.0, 8.0),
+            bounds_note="the exact extreme eigenvalues 1 and 8; the dilation's alpha is 8, so kappa_b = alpha/lambda_lo = 8",
+            note="QSVT (no clock): the odd polynomial p ~ s*a/x of relative error <= 1e-2 on [1/8, 1], so the post-selected "
+            "amplitudes are p(A/alpha)b (constants.polynomial), within 1e-2 relative of C*A^-1 b",
+        )
     raise QgpError(f"unknown catalogue entry {name!r}; choose one of {CATALOGUE}")
 
 
@@ -141,6 +158,7 @@ def catalogue_document(entry: CatalogueEntry, gi: GateInversion, *, simulate: bo
     """The JSON document of a catalogue entry: inputs, constants, resources, expected results."""
     b = normalised_amplitudes(entry.b)
     ideal = gi.inversion.scale * np.linalg.solve(entry.A, b)
+    clock = algorithm_of(entry.settings).uses_clock
     doc = {
         "name": entry.name,
         "title": entry.title,
@@ -156,9 +174,9 @@ def catalogue_document(entry: CatalogueEntry, gi: GateInversion, *, simulate: bo
         "bounds_note": entry.bounds_note,
         "constants": constants_document(gi),
         "scale_inverse": gi.inversion.scale,
-        "projector": PROJECTORS[INVERSION_FILE],
-        "reading": reading_text(f"{entry.name}.qasm", "yhat = b/|b|, b above"),
-        "resources": resources_of(gi).as_dict(),
+        "projector": projectors_of(entry.settings)[INVERSION_FILE],
+        "reading": reading_text(f"{entry.name}.qasm", "yhat = b/|b|, b above", clock=clock),
+        "resources": file_resources(entry.A, gi).as_dict(),
         "gate_counts_by_origin": gate_counts_by_origin(gi.decomposed),
         "expected": {
             "ideal_postselected_amplitudes": ideal.tolist(),
@@ -167,6 +185,11 @@ def catalogue_document(entry: CatalogueEntry, gi: GateInversion, *, simulate: bo
         "versions": qiskit_versions(),
         "platform": platform_info(),
     }
+    poly = gi.inversion.polynomial
+    if poly is not None:  # QSVT: what the circuit applies exactly, p(A/alpha)b, by numpy
+        w, v = np.linalg.eigh(entry.A)
+        applied = v @ (poly(w / gi.inversion.alpha) * (v.T @ b))
+        doc["expected"]["polynomial_postselected_amplitudes"] = applied.tolist()
     if simulate:
         amps, p = _simulated_postselection(entry, b)
         fid = abs(np.vdot(amps, ideal)) ** 2 / (np.vdot(amps, amps).real * (ideal @ ideal))
@@ -182,8 +205,10 @@ def catalogue_document(entry: CatalogueEntry, gi: GateInversion, *, simulate: bo
 
 
 def _settings_document(settings: CircuitSettings) -> dict:
-    """The [circuit] settings that apply to the chosen oracle."""
+    """The [circuit] settings that apply to the chosen oracle (or to QSVT)."""
     doc = asdict(settings)
+    if not algorithm_of(settings).uses_clock:  # QSVT: the encoding and the polynomial's target
+        return {k: doc[k] for k in ("method", "clock_qubits", "encoding", "target_error", "degree")}
     method = method_of(settings)
     if method.encoding(settings) is None:  # no block encoding
         doc.pop("encoding")
@@ -218,7 +243,7 @@ def build_catalogue(out_dir: Path = Path("circuits"), names: Sequence[str] = CAT
     for name in names:
         entry = catalogue_entry(name)
         refuse_if_too_large(entry.A, entry.settings, f"catalogue entry {name}")
-        gi = gate_inversion(entry.A, entry.settings, "inverse", entry.bounds, prepare=normalised_amplitudes(entry.b))
+        gi = exported_inversion(entry.A, entry.settings, "inverse", entry.bounds, prepare=normalised_amplitudes(entry.b))
         text = to_qasm3(gi.decomposed, [entry.title, *(header_lines("", gi, INVERSION_FILE)[1:]), f"regenerate: {REGENERATE_COMMAND}"])
         doc = json.dumps(catalogue_document(entry, gi), indent=2) + "\n"
         qasm, js = out / f"{name}.qasm", out / f"{name}.json"

@@ -8,15 +8,15 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from numpy.polynomial import chebyshev
 from qiskit import qasm3, transpile
 from qiskit_aer import AerSimulator
 
 from qgp.circuits.encoding import normalised_amplitudes
-from qgp.reports.export import gate_counts_by_origin
+from qgp.reports.export import constants_document, exported_inversion, file_resources, gate_counts_by_origin
 from qgp.circuits.qasm import fused_circuit
 from qgp.tools.catalogue import CATALOGUE, REGENERATE_COMMAND, catalogue_entry, main
 from qgp.circuits.inversion import build_inversion, statevector_array
-from qgp.circuits.resources import gate_inversion, resources_of
 from qgp.readout.simulate import run_statevector
 
 CIRCUITS = Path(__file__).resolve().parents[2] / "circuits"
@@ -116,8 +116,9 @@ def test_resource_counts_did_not_change_unnoticed(name):
     # A change beyond either shows a qiskit upgrade or a change in qgp: find out why, then
     # regenerate with the documented command.
     entry = catalogue_entry(name)
-    gi = gate_inversion(entry.A, entry.settings, "inverse", entry.bounds, prepare=normalised_amplitudes(entry.b))
-    now = resources_of(gi).as_dict()
+    # The circuit the catalogue writes, for either method (phase estimation or QSVT, which has no clock).
+    gi = exported_inversion(entry.A, entry.settings, "inverse", entry.bounds, prepare=normalised_amplitudes(entry.b))
+    now = file_resources(entry.A, gi).as_dict()
     origin = gate_counts_by_origin(gi.decomposed)
     _, doc = _stored(name)
     stored, stored_origin = doc["resources"], doc["gate_counts_by_origin"]
@@ -139,7 +140,17 @@ def test_resource_counts_did_not_change_unnoticed(name):
                 worst, worst_what = rel, f"{what}: {a} now vs {b} stored"
     assert worst <= SYNTH_RTOL, f"{where}: synthesis-dependent count off by {worst:.2%} ({worst_what})"
     assert gi.inversion.scale == pytest.approx(doc["scale_inverse"], rel=1e-12)
-    assert np.allclose(gi.inversion.clock_eigenvalues, doc["constants"]["clock_eigenvalues"], rtol=1e-12, atol=0)
+    # Phase estimation: the decoded clock eigenvalues; QSVT: the polynomial (degree exact, the rest to 1e-12).
+    constants = constants_document(gi)
+    assert sorted(constants) == sorted(doc["constants"]), where
+    assert np.allclose(gi.inversion.clock_eigenvalues, doc["constants"].get("clock_eigenvalues", []), rtol=1e-12, atol=0)
+    if "polynomial" in constants:
+        poly, stored_poly = constants["polynomial"], doc["constants"]["polynomial"]
+        assert (poly["kind"], poly["degree"]) == (stored_poly["kind"], stored_poly["degree"]), where
+        for key in ("scale", "max_error"):
+            assert poly[key] == pytest.approx(stored_poly[key], rel=1e-9), f"{where}: polynomial {key}"
+        c, c_stored = np.array(poly["coefficients"]), np.array(stored_poly["coefficients"])
+        assert np.allclose(c, c_stored, rtol=0, atol=1e-12 * np.max(np.abs(c_stored))), f"{where}: polynomial coefficients"
 
 
 def test_catalogue_records_the_platform():
@@ -165,6 +176,37 @@ def test_cao_worked_example_from_the_file():
     worst = float(np.max(np.abs(post - inv.scale * x)))
     assert worst < 1e-10, f"worst residual against C·A⁻¹b: {worst:.3g}"
     assert abs(float(np.vdot(post, post).real) - inv.scale**2 * float(x @ x)) < 1e-10
+
+
+def _polynomial_entries() -> list[str]:
+    """Entries whose circuit applies a polynomial of A/α (QSVT: the stored constants hold it)."""
+    return [name for name in CATALOGUE if "polynomial" in _stored(name)[1]["constants"]]
+
+
+def test_catalogue_has_a_polynomial_entry():
+    assert _polynomial_entries(), "no QSVT entry in the catalogue"
+
+
+@pytest.mark.parametrize("name", _polynomial_entries())
+def test_qsvt_file_applies_its_stored_polynomial(name):
+    # A QSVT entry's file, post-selected on flag = 1, block = 0 (no clock), holds p(A/α)b with p
+    # the Chebyshev series stored in the JSON, computed here with numpy at A's eigenvalues over α
+    # (1e-10), and within the polynomial's relative error of C·A⁻¹b.
+    entry = catalogue_entry(name)
+    _, doc = _stored(name)
+    c = doc["constants"]
+    assert doc["projector"] == {"flag": 1, "block": 0} and doc["resources"]["qubits"]["clock"] == 0
+    b = normalised_amplitudes(entry.b)
+    w, v = np.linalg.eigh(entry.A)
+    expected = v @ (chebyshev.chebval(w / c["alpha"], c["polynomial"]["coefficients"]) * (v.T @ b))
+    _, inv, _ = _rebuilt(name)
+    post = statevector_array(_file_state(name), inv)[0, 1, 0, :]
+    worst = float(np.max(np.abs(post - expected)))
+    assert worst < 1e-10, f"{name}: worst residual against p(A/alpha)b {worst:.3g}"
+    assert np.allclose(doc["expected"]["polynomial_postselected_amplitudes"], expected, rtol=0, atol=1e-12)
+    ideal = c["scale"] * np.linalg.solve(entry.A, b)
+    rel = float(np.linalg.norm(post.real - ideal) / np.linalg.norm(ideal))
+    assert rel <= c["polynomial"]["max_error"] + 1e-12, f"{name}: {rel:.3g} from C*A^-1 b"
 
 
 def test_two_by_two_example_from_the_file():
