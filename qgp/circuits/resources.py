@@ -108,6 +108,12 @@ _COMPOSITION_NOTE = (
     "longest-path matrix (max-plus algebra); they are exactly the gates of the exported file. Level {level} "
     "optimises nothing across gates, so both equal a direct transpile of the whole circuit{lcu}"
 )
+_QSVT_COMPOSITION = (
+    "each distinct sub-circuit (the block encoding U, each projector-controlled phase's open-controlled X and "
+    "RZ, the signal qubit's Hadamards, the flag's multi-controlled X) is transpiled once at optimization_level "
+    "{level}; gate counts are exact sums over its repetitions and the depth is composed from each piece's "
+    "longest-path matrix (max-plus algebra){lcu}"
+)
 _LCU_COMPOSITION = (
     ", except with the lcu encoding: there a direct transpile may borrow idle qubits of other registers as "
     "ancillas for the multi-controlled Paulis and comes out lower, so these counts and depth are an upper bound"
@@ -571,11 +577,15 @@ def qsvt_resources(
         trotter_steps_total=None,
         optimization_level=OPTIMIZATION_LEVEL,
         gate_counts=counts,
-        composition=_COMPOSITION_NOTE.format(level=OPTIMIZATION_LEVEL, lcu=_LCU_COMPOSITION if terms else "") if counts else None,
+        composition=_QSVT_COMPOSITION.format(level=OPTIMIZATION_LEVEL, lcu=_LCU_COMPOSITION if terms else "") if counts else None,
         synthesis_dependent=synth is not None,
         note=_SYNTHESIS_NOTE.format(what=synth) if synth is not None else "gate counts come from the algorithm's own gates",
         gate_level_skipped=skipped,
-        size_estimate={"synthesis_gates_per_basis": piece.synthesis_gates, "oracle_calls": d, "largest_piece": piece.largest_piece},
+        size_estimate={
+            "synthesis_gates_per_basis": piece.synthesis_gates,
+            "oracle_calls": d,
+            "largest_piece": f"one block-encoding call, bounded by the size of its controlled form: {piece.largest_piece}",
+        },
     )
 
 
