@@ -36,6 +36,7 @@ from pathlib import Path
 
 import numpy as np
 
+from qgp.circuits.decomposition import _register_offsets
 from qgp.circuits.algorithms import algorithm_of
 from qgp.circuits.encoding import (
     BLOCK,
@@ -366,11 +367,7 @@ def _qsvt_named(dec: DecomposedCircuit) -> DecomposedCircuit:
     ``system`` alone before anything else), ``block_encoding_<kind>`` for one call of U,
     ``set_flag`` for flag ⊕= [block = 0] and ``signal_x_on_block0`` for the X of the
     projector-controlled phases."""
-    offsets, sizes = {}, dict(dec.registers)
-    at = 0
-    for name, size in dec.registers:
-        offsets[name] = at
-        at += size
+    offsets, sizes = _register_offsets(dec.registers), dict(dec.registers)
     system = set(range(offsets[SYSTEM], offsets[SYSTEM] + sizes[SYSTEM]))
     flag = offsets[FLAG]
     signal = offsets[BLOCK] + sizes[BLOCK] - 1
@@ -457,6 +454,11 @@ def _export_qsvt_inversions(A, settings, bounds, yhat, out_dir, *, title, extra,
         doc["resources"][file] = resources[file]
         doc["constants"][file] = constants_document(gi)
         texts[file] = to_qasm3(gi.decomposed, header_lines(title, gi, file, measure=measure), measure=measure)
+    return _write_export(out, texts, doc)
+
+
+def _write_export(out: Path, texts: dict[str, str], doc: dict) -> list[Path]:
+    """Write the OpenQASM files and resources.json (versions and platform added), each atomically."""
     doc["versions"] = qiskit_versions()
     doc["platform"] = platform_info()
     out.mkdir(parents=True, exist_ok=True)
@@ -565,16 +567,7 @@ def export_inversions(
             "reading": _hadamard_reading(file),
             "expected": point.expected,
         }
-    doc["versions"] = qiskit_versions()
-    doc["platform"] = platform_info()
-    out.mkdir(parents=True, exist_ok=True)
-    paths = []
-    for file, text in texts.items():
-        atomic_write_text(out / file, text)
-        paths.append(out / file)
-    atomic_write_text(out / RESOURCES_FILE, json.dumps(doc, indent=2) + "\n")
-    paths.append(out / RESOURCES_FILE)
-    return paths
+    return _write_export(out, texts, doc)
 
 
 def export_config(cfg: Config, out_dir, *, measure: bool = False, test_point: int | None = None, force: bool = False) -> list[Path]:
