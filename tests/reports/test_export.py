@@ -44,8 +44,9 @@ TOL = 1e-9
 AER_TOL = 1e-8
 
 
-def _write_config(folder: Path, n: int, circuit: str, clock_qubits: int = 3) -> Path:
-    """A small RBF problem on n points of a smooth 1-D curve (seed 5), κ(A) = 10."""
+def _write_config(folder: Path, n: int, circuit: str, clock_qubits: int | None = 3) -> Path:
+    """A small RBF problem on n points of a smooth 1-D curve (seed 5), κ(A) = 10 (``clock_qubits``
+    None: no clock line, for QSVT)."""
     rng = np.random.default_rng(5)
     x = np.sort(rng.uniform(0.0, 10.0, n))
     y = np.sin(x) + 0.1 * rng.normal(size=n)
@@ -54,7 +55,9 @@ def _write_config(folder: Path, n: int, circuit: str, clock_qubits: int = 3) -> 
     cfg = folder / "small.toml"
     cfg.write_text(
         '[data]\ntrain = "train.csv"\ntarget = "y"\n\n[kernel]\nfamily = "rbf"\nlengthscale = 2.0\n\n'
-        f"[noise]\ntarget_condition = 10.0\n\n[circuit]\nclock_qubits = {clock_qubits}\n{circuit}\n"
+        "[noise]\ntarget_condition = 10.0\n\n[circuit]\n"
+        + ("" if clock_qubits is None else f"clock_qubits = {clock_qubits}\n")
+        + f"{circuit}\n"
     )
     return cfg
 
@@ -412,10 +415,13 @@ def test_unmeasured_hadamard_test_runs_the_users_way_in_aer(hadamard_export):
     _assert_names_free((folder / "plain" / hadamard_file(j)).read_text(), "hadamard test")
 
 
-def test_export_never_overwrites_without_force(tmp_path, capsys):
+@pytest.mark.parametrize(
+    "circuit, clock", [(CIRCUITS["exact"], 2), ('method = "qsvt"\ntarget_error = 0.1', None)], ids=["exact", "qsvt"]
+)
+def test_export_never_overwrites_without_force(tmp_path, capsys, circuit, clock):
     # Issue 10 ("No user file is ever lost"): a second export into the same folder is refused
     # with one line naming the files, before any circuit is built; --force replaces them.
-    cfg_path = _write_config(tmp_path, 3, CIRCUITS["exact"], clock_qubits=2)
+    cfg_path = _write_config(tmp_path, 3, circuit, clock_qubits=clock)
     cfg = load_config(cfg_path)
     out = tmp_path / "out"
     first = export_config(cfg, out)

@@ -197,27 +197,7 @@ def test_qsvt_file_gates_are_the_counted_gates(exported):
         assert all(n.startswith("qgp_") for n in re.findall(r"^gate\s+(\w+)", text, flags=re.M))
 
 
-def test_qsvt_export_never_overwrites_without_force(tmp_path, capsys):
-    cfg_path = _write_config(tmp_path, "dilation")
-    cfg = load_config(cfg_path)
-    out = tmp_path / "out"
-    first = export_config(cfg, out)
-    before = {p.name: p.read_text() for p in first}
-    (out / INVERSION_FILE).write_text("a user's edit\n")
-    with pytest.raises(QgpError) as err:
-        export_config(cfg, out)
-    msg = str(err.value)
-    assert "\n" not in msg and "--force" in msg
-    assert all(name in msg for name in (INVERSION_FILE, INVERSION_SQRT_FILE, RESOURCES_FILE)), msg
-    assert (out / INVERSION_FILE).read_text() == "a user's edit\n"
-    again = export_config(cfg, out, force=True)
-    assert {p.name: p.read_text() for p in again}[INVERSION_FILE] == before[INVERSION_FILE]
-    assert sorted(p.name for p in out.iterdir()) == sorted(before), "stray or temporary files"
-    (out / INVERSION_FILE).write_text("a user's edit\n")
-    assert cli_main(["export", str(cfg_path), "--out", str(out)]) == 2
-    err_lines = capsys.readouterr().err.strip().splitlines()
-    assert len(err_lines) == 1 and "already holds" in err_lines[0], err_lines
-    assert (out / INVERSION_FILE).read_text() == "a user's edit\n"
+# Never overwriting without --force: tests/reports/test_export.py::test_export_never_overwrites_without_force[qsvt].
 
 
 def test_qsvt_export_refuses_a_test_point(tmp_path, capsys):
