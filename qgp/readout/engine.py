@@ -17,6 +17,7 @@ outside `SUPPORTED` raises `Unsupported`, and the caller runs Aer instead.
 from __future__ import annotations
 
 import contextlib
+import math
 import threading
 from collections.abc import Callable, Iterator, Mapping
 from typing import Any
@@ -76,8 +77,6 @@ def buffer_pool() -> Iterator[None]:
                 _POOL.clear()
 
 
-
-
 class _State:
     """The state as a tensor with one axis per stored qubit; ``order[i]`` is the qubit of axis i
     (axis 0 most significant). Qubits not in ``order`` are in |0⟩."""
@@ -95,7 +94,7 @@ class _State:
 
     def _scratch(self, shape) -> np.ndarray:
         """An array of ``shape`` in the buffer the state is not in (becomes the state's buffer)."""
-        size = int(np.prod(shape, dtype=np.int64))
+        size = math.prod(shape)
         other = 0 if self._current != 0 else 1
         self._current = other
         return self._buffers[other][:size].reshape(shape)
@@ -168,8 +167,8 @@ class _State:
             self._arrange([], group)
             i = len(self.order) - a
         shape = self.t.shape
-        hi = int(np.prod(shape[:i], dtype=np.int64))
-        lo = int(np.prod(shape[i + a :], dtype=np.int64))
+        hi = math.prod(shape[:i])
+        lo = math.prod(shape[i + a :])
         view = self.t.reshape(hi, 2**a, lo)
         out = self._scratch((hi, 2**a, lo))
         if lo == 1:
@@ -247,7 +246,7 @@ class _State:
             self._arrange(cgroup, [])
             i = 0
         shape = self.t.shape
-        hi = int(np.prod(shape[:i], dtype=np.int64))
+        hi = math.prod(shape[:i])
         K = columns.shape[0]
         view = self.t.reshape(hi, K, -1)
         out = self._scratch((2, hi, K, view.shape[2]))
@@ -298,7 +297,7 @@ class _State:
             self._arrange([], group)
             i = len(self.order) - len(group)
         shape = self.t.shape
-        hi = int(np.prod(shape[:i], dtype=np.int64))
+        hi = math.prod(shape[:i])
         view = self.t.reshape(hi, 2 ** len(qubits), -1)
         f = scipy.fft.fft if inverse_qft else scipy.fft.ifft
         self.t = f(view, axis=1, norm="ortho", workers=workers, overwrite_x=True).reshape(shape)
@@ -347,8 +346,8 @@ class _State:
             for q in block:  # most significant axis first
                 w = np.kron(w, rows[q])
             shape = np.shape(t)
-            hi = int(np.prod(shape[:first], dtype=np.int64))
-            lo = int(np.prod(shape[first + len(block) :], dtype=np.int64))
+            hi = math.prod(shape[:first])
+            lo = math.prod(shape[first + len(block) :])
             t = np.matmul(w, np.reshape(t, (hi, w.size, lo))).reshape(shape[:first] + shape[first + len(block) :])
             order = order[:first] + order[first + len(block) :]
         rest = [q for q in range(self.n) if q not in project]
@@ -386,8 +385,6 @@ def project_statevector(statevector: np.ndarray, project: Mapping[int, int]) -> 
     n = sv.size.bit_length() - 1
     index = tuple(project.get(q, slice(None)) for q in range(n - 1, -1, -1))
     return sv.reshape((2,) * n)[index].reshape(-1).copy()
-
-
 
 
 def simulate(
@@ -479,24 +476,6 @@ def simulate(
     return out
 
 
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
-
 def _blocks(view: np.ndarray, stack: np.ndarray, out: np.ndarray, identity) -> None:
     """out[k] = view[k]·stack[k]ᵀ for every k (view, out: (K, rows, T)); identity blocks copied."""
     if identity is None:
@@ -507,16 +486,6 @@ def _blocks(view: np.ndarray, stack: np.ndarray, out: np.ndarray, identity) -> N
             out[k] = view[k]
         else:
             np.matmul(view[k], stack[k].T, out=out[k])
-
-
-
-
-
-
-
-
-
-
 
 
 #: Largest group of qubits a fused one-qubit layer applies as one matrix (2^4 × 2^4).
