@@ -21,6 +21,8 @@ figures=(
   "fig5 fig5_taper_sparsity"
   "fig6 fig6_circuit_cost"
   "fig7 fig7_scaling"
+  "fig8 fig8_qsvt_vs_phase_estimation"
+  "fig8b fig8_qsvt_vs_phase_estimation"   # fig. 8 on scikit-learn's diabetes data
 )
 
 for entry in "${figures[@]}"; do
@@ -28,6 +30,9 @@ for entry in "${figures[@]}"; do
   start=$SECONDS
   qgp sweep "$here/$sweep.toml" --store "$run_dir/$sweep.sqlite" --workers "$workers"
   qgp figures "$run_dir/$sweep.sqlite" --out "$run_dir/$sweep" --force   # its own folder: redrawn on every run
-  cp "$run_dir/$sweep/$name.csv" "$run_dir/$sweep/$name.txt" "$here/results/"
+  # Copied under the sweep's name (fig1_… from fig1, fig8b_… from fig8b), so two stores of one figure do not collide.
+  dest="$here/results/${sweep}_${name#*_}"
+  cp "$run_dir/$sweep/$name.csv" "$dest.csv"
+  cp "$run_dir/$sweep/$name.txt" "$dest.txt"
   echo "$sweep: $((SECONDS - start)) s (sweep and figures) -> $run_dir/$sweep/$name.{pdf,png}"
 done

@@ -1,6 +1,6 @@
 """The figures of a parameter sweep (`qgp figures RESULTS.sqlite --out DIR`).
 
-Seven figures, each drawn only if the store holds the data it needs (otherwise skipped with a
+Eight figures, each drawn only if the store holds the data it needs (otherwise skipped with a
 note, never drawn empty):
 
 1. ``fig1_error_vs_qubits``   error of the mean and of the variance against total and clock qubits,
@@ -17,7 +17,12 @@ note, never drawn empty):
                               qubits and success probability a 1% error needs — simulated where the
                               store has runs, the closed-form filter model (qgp.readout.filter_model) beyond,
                               marked "model". Kernel matrices' κ and sparsity tend to grow with n
-                              (Lowe, Kim & Bondesan, arXiv:2505.22502 (2025), as its abstract reports).
+                              (Lowe, Kim & Bondesan, arXiv:2505.22502 (2025), as its abstract reports);
+8. ``fig8_qsvt_vs_phase_estimation`` QSVT against phase estimation on the same GP problems, one column
+                              per κ: mean and variance error against block-encoding calls, with the
+                              fewest calls for a 1% mean error marked and the query models κ/ε
+                              (phase estimation) and κ·ln(κ/ε) (QSVT) beside them, unfitted; the mean's
+                              error against total qubits.
 
 Contract: every figure is drawn from the rows of the CSV written beside it and from nothing
 else, so the CSV holds exactly the plotted numbers. Columns (`CSV_COLUMNS`):
@@ -51,6 +56,7 @@ from qgp.sweeps.figures.fig4 import _fig4
 from qgp.sweeps.figures.fig5 import _fig5
 from qgp.sweeps.figures.fig6 import _fig6
 from qgp.sweeps.figures.fig7 import _fig7
+from qgp.sweeps.figures.fig8 import _fig8
 from qgp.sweeps.figures.model import (
     MEAN_TARGET,
     MODEL_MAX_CLOCK,
@@ -138,6 +144,7 @@ FIGURES: dict[str, Callable[[list], _Figure]] = {
     "fig5_taper_sparsity": _fig5,
     "fig6_circuit_cost": _fig6,
     "fig7_scaling": _fig7,
+    "fig8_qsvt_vs_phase_estimation": _fig8,
 }
 
 
@@ -151,7 +158,7 @@ def _select(only: Sequence[str] | None) -> list[str]:
     for want in only:
         hits = [n for n in FIGURES if n == want or n.split("_", 1)[0] == want]
         if not hits:
-            raise QgpError(f"unknown figure {want!r}; choose from {', '.join(FIGURES)} (or fig1 … fig7)")
+            raise QgpError(f"unknown figure {want!r}; choose from {', '.join(FIGURES)} (or fig1 … fig8)")
         out += [h for h in hits if h not in out]
     return out
 
@@ -160,7 +167,7 @@ def draw_figures(source, out_dir: str | Path, *, only: Sequence[str] | None = No
     """Draw every figure the data supports into ``out_dir``; the others come back skipped with a note.
 
     ``source``: a result store path or a sequence of StoredPoint-likes. ``only``: figure names or
-    "fig1" … "fig7".
+    "fig1" … "fig8".
     """
     points, text = load_points(source)
     out_dir = Path(out_dir)

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from qgp.circuits.methods import method_label
+from qgp.circuits.algorithms import algorithm_of
 from qgp.errors import QgpError
 from qgp.settings import CircuitSettings
 from qgp.readout.summary import summary_key
@@ -27,7 +27,15 @@ SUMMARY: dict[str, str] = {column: "summary:" + ".".join(path) for column, _, pa
 #: Axes aggregated over (mean, sample std and min–max band); every other axis separates points.
 SEED_KEYS = ("readout.seed",)
 _NOISE_KEYS = ("noise.target_condition", "noise.variance")
-_ORACLE_KEYS = ("circuit.evolution", "circuit.encoding", "circuit.trotter_steps", "circuit.trotter_order")
+_ORACLE_KEYS = (
+    "circuit.method",
+    "circuit.evolution",
+    "circuit.encoding",
+    "circuit.trotter_steps",
+    "circuit.trotter_order",
+    "circuit.target_error",
+    "circuit.degree",
+)
 _SHOT_KEYS = ("readout.shots",)
 _BAND = "Lines: mean over readout seeds; bands (where a seed axis varies): min–max over seeds."
 
@@ -229,14 +237,22 @@ def _fmt(v) -> str:
 
 
 def _oracle(p) -> tuple[str, str]:
-    """The phase oracle as one series part: its method's label (qgp.circuits.methods.method_label)."""
+    """The inversion method as one series part: its label (qgp.circuits.algorithms), with the
+    polynomial's target error or degree for a method without a clock (QSVT)."""
+    method = point_value(p, "summary:method") or "phase_estimation"
     settings = CircuitSettings(
-        evolution=point_value(p, SUMMARY["evolution"]),
-        encoding=point_value(p, SUMMARY["encoding"]),
+        method=method,
+        evolution=point_value(p, SUMMARY["evolution"]) or CircuitSettings().evolution,
+        encoding=point_value(p, SUMMARY["encoding"]) or CircuitSettings().encoding,
         trotter_steps=point_value(p, "config:circuit.trotter_steps"),
         trotter_order=point_value(p, "config:circuit.trotter_order"),
     )
-    return ("oracle", method_label(settings))
+    algorithm = algorithm_of(settings)
+    label = algorithm.label(settings)
+    if not algorithm.uses_clock:
+        target = point_value(p, "config:circuit.target_error")
+        label += f", ε = {target:g}" if target is not None else f", degree {point_value(p, 'config:circuit.degree')}"
+    return ("oracle", label)
 
 
 def _shots(p) -> tuple[str, str]:
