@@ -434,7 +434,10 @@ def simulate(
     steps = program.steps
     closing: list[dict] = []
     if project and reduce is not None:
-        # The closing one-qubit layers on projected qubits: contracted at the end, not applied.
+        # Saves nobody asked for at the end (the final state's own) do nothing: drop them, so that
+        # the closing one-qubit layers on projected qubits are contracted at the end, not applied.
+        while steps and steps[-1][0] == "save" and steps[-1][1] not in wanted:
+            steps = steps[:-1]
         while steps and steps[-1][0] == "layer" and set(steps[-1][1]) <= set(project):
             closing.insert(0, steps[-1][1])
             steps = steps[:-1]

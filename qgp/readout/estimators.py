@@ -39,6 +39,7 @@ from qgp.circuits.inversion import (
     InversionCircuit,
     flag_probability,
     flag_rotation_circuit,
+    postselection,
     rotation_angles,
     statevector_array,
 )
@@ -240,9 +241,13 @@ def operators_from_reference_run(
         n = qc.num_qubits
         need = reference_run_bytes(inverse.circuit.num_qubits, m, c, b, m, snapshot=True)
         require_memory(need, f"the reference-register run on {n} qubits (a saved state and the final one)", cap)
-        sv_pre, sv_inv = run_saved_statevectors(qc, [_PHASE_ESTIMATED, _FINAL], cap=cap, timings=timings)
-        B = _postselected_columns(sv_inv, inverse)
-        del sv_inv
+        # The final state is read only on flag = 1, clock = 0, block = 0: projected, it is B's
+        # 2^m × 2^m amplitudes [reference r, system s] (never the whole final state).
+        sv_pre, post = run_saved_statevectors(
+            qc, [_PHASE_ESTIMATED, _FINAL], cap=cap, timings=timings, project=postselection(inverse)
+        )
+        n_in = 2**m
+        B = (np.asarray(post).reshape(n_in, n_in) * np.sqrt(n_in)).T.copy()
         # The flag is still 0 in the saved state: its flag = 0 slice is ψ.
         g = np.sin(rotation_angles(inverse_sqrt.flag_amplitudes) / 2)
         M = _gram_of_slices(sv_pre, inverse, 0, g)

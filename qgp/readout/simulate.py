@@ -324,11 +324,21 @@ def run_statevectors(
 
 
 def run_saved_statevectors(
-    circuit: QuantumCircuit, labels: list[str], *, cap: int | None = None, timings: dict | None = None
+    circuit: QuantumCircuit,
+    labels: list[str],
+    *,
+    cap: int | None = None,
+    timings: dict | None = None,
+    project: dict[int, int] | None = None,
 ) -> list[np.ndarray]:
     """The statevectors ``circuit`` saves under ``labels`` (its own ``save_statevector(label=…)``
     instructions: states part-way through one run), in one simulator job. ``timings`` as in
-    `run_statevectors`; memory is checked for one statevector per label."""
+    `run_statevectors`; memory is checked for one statevector per label.
+
+    ``project`` (qubit → 0/1): the last label must be the circuit's final save; for it only the
+    amplitudes with those qubits at those values are returned (`qgp.readout.engine.project_statevector`
+    order), whichever engine ran — the numpy engine then never writes the full final state out,
+    and contracts a closing one-qubit layer on projected qubits with the wanted rows."""
     n = circuit.num_qubits
     require_memory(
         len(labels) * statevector_bytes(n), f"simulating '{circuit.name}' on {n} qubits ({len(labels)} saved states)", cap
@@ -343,7 +353,11 @@ def run_saved_statevectors(
         )
         _log("numpy")
         t0 = time.perf_counter()
-        states = simulate(circuit, labels=labels, workers=_threads())
+        if project is None:
+            states = simulate(circuit, labels=labels, workers=_threads())
+        else:
+            states = simulate(circuit, labels=labels[:-1], workers=_threads(), reduce=np.copy, project=project)
+            states[labels[-1]] = states["final"]
         if timings is not None:
             timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t0)
         return [states[label] for label in labels]
@@ -357,6 +371,10 @@ def run_saved_statevectors(
         raise QgpError(f"the simulator failed: {result.status}")
     data = result.data(0)
     out = [np.asarray(data[label]) for label in labels]
+    if project is not None:
+        from qgp.readout.engine import project_statevector
+
+        out[-1] = project_statevector(out[-1], project)
     if timings is not None:
         timings["transpile"] = timings.get("transpile", 0.0) + (t1 - t0)
         timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t1)

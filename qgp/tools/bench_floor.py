@@ -85,7 +85,8 @@ def floor_case(kind: str, clock_qubits: int, *, repeats: int = 5, aer_repeats: i
     inference; and cold: fresh buffers) and of Aer on one case, its floor and the ratios.
 
     ``kind`` "reference": the amortised reference-register run of the bench problem (n = 16,
-    exact oracle; both saved states returned). "inversion": one inversion with ŷ prepared, the
+    exact oracle) as infer reads it: the saved state before the rotation, and the final state's
+    post-selected rows only. "inversion": one inversion with ŷ prepared, the
     post-selected amplitudes read from the final state (what qgp uses of it).
     """
     from qgp.circuits.inversion import build_inversion, postselection
@@ -107,11 +108,13 @@ def floor_case(kind: str, clock_qubits: int, *, repeats: int = 5, aer_repeats: i
         qc = _reference_with_snapshot(inv)
         labels = ["phase_estimated", "final"]
 
+        post = postselection(inv)
+
         def run(name):
             with engine_scope(name):
-                return run_saved_statevectors(qc, labels)
+                return run_saved_statevectors(qc, labels, project=post)
 
-        saves = 2
+        saves = 1  # the snapshot; the final state is only read on the post-selected rows
     else:
         inv = build_inversion(A, circuit, "inverse", bounds, prepare=unit_inputs(problem)[0], form="simulation")
         qc = inv.circuit

@@ -25,6 +25,8 @@ from qgp.readout.estimators import (
     reference_circuit,
     variance_circuit,
 )
+from qgp.circuits.inversion import postselection
+from qgp.readout.engine import project_statevector
 from qgp.readout.simulate import engine_scope, run_saved_statevectors, run_statevectors
 from qgp.settings import CircuitSettings
 
@@ -102,6 +104,14 @@ def test_saved_states_and_operators_equal_aer(settings_):
     for label, a, b in zip(labels, got, ref):
         assert _worst(a, b) < TOL, f"{label}: {_worst(a, b):.2e}"
     assert _worst(ops_np.B, ops_aer.B) < TOL and _worst(ops_np.M, ops_aer.M) < TOL
+    # The final state read on the post-selected rows only (what the amortised read-out does):
+    # the numpy engine's contracted closing layer against Aer's full state, projected.
+    post = postselection(inv)
+    with engine_scope("numpy"):
+        got_pre, got_post = run_saved_statevectors(qc, labels, project=post)
+    assert _worst(got_pre, ref[0]) < TOL
+    worst = _worst(got_post, project_statevector(ref[1], post))
+    assert worst < TOL, f"projected final state: {worst:.2e}"
 
 
 @pytest.mark.parametrize("c", [2, 3, 5, 7])
