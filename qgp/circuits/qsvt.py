@@ -37,7 +37,7 @@ import math
 
 import numpy as np
 from qiskit.circuit import QuantumCircuit, QuantumRegister
-from qiskit.circuit.library import DiagonalGate, UnitaryGate, XGate
+from qiskit.circuit.library import DiagonalGate, HGate, RZGate, UnitaryGate, XGate, ZGate
 
 from qgp.circuits.encoding import BLOCK, SYSTEM, BlockEncoding, MultiplexerGate
 from qgp.circuits.phase_estimation import Form, _check_form
@@ -97,9 +97,12 @@ def qsvt_circuit(be: BlockEncoding, wx_phases, form: Form = "gate", *, probe: bo
         Symmetric QSP phases (`qgp.circuits.qsp.qsp_phases`), d ≥ 1.
     form : "gate" or "simulation"
     probe : bool
-        Simulation form only: add a last qubit ``probe`` and run the whole sequence (global
-        phase i^d included) only on probe = 0; probe = 1 leaves system and block untouched, so
-        its flag ends at 1 — the controlled operation of a Hadamard test of ⟨l|f(A/α)|r⟩.
+        Add a last qubit ``probe`` and run the whole sequence (global phase i^d included) only
+        on probe = 0; probe = 1 leaves system and block untouched, so its flag ends at 1 — the
+        controlled operation of a Hadamard test of ⟨l|f(A/α)|r⟩. Gate form: the signal's
+        Hadamards, the RZ of each phase and every call of U are controlled on probe = 0 (open
+        control); the phases' X on the signal need no control, as on probe = 1 they flip a
+        signal that nothing else touches and flip it back.
 
     Returns
     -------
@@ -108,8 +111,6 @@ def qsvt_circuit(be: BlockEncoding, wx_phases, form: Form = "gate", *, probe: bo
         block its amplitudes on flag = 1, block = 0 are f(A/α) applied to the system input.
     """
     _check_form(form)
-    if probe and form != "simulation":
-        raise QgpError("the probe-controlled QSVT sequence is built in the simulation form only")
     phi = reflection_phases(wx_phases)
     d = phi.size - 1
     m, b = be.n_system_qubits, be.n_block_qubits
@@ -121,7 +122,14 @@ def qsvt_circuit(be: BlockEncoding, wx_phases, form: Form = "gate", *, probe: bo
     enc, signal = list(block[:b]), block[b]
     ctrl = [regs[3][0]] if probe else []
     opening = (_Z if d % 2 else np.eye(2)) @ _H  # H, then Z: relative phase (−1)^d between the ±φ branches
-    if probe:
+    if probe and form == "gate":
+        qc.append(HGate().control(1, ctrl_state=0), [*ctrl, signal])
+        if d % 2:
+            qc.append(ZGate().control(1, ctrl_state=0), [*ctrl, signal])
+        # i^d on probe = 0 only: the global phase i^d, undone on probe = 1 by a phase gate.
+        qc.global_phase += d * math.pi / 2
+        qc.p(-d * math.pi / 2, ctrl[0])
+    elif probe:
         # i^d on the active branch only: a global phase would also turn the probe = 1 branch.
         qc.append(MultiplexerGate([1j**d * opening, np.eye(2)], label="open"), [signal, *ctrl], copy=False)
     else:
@@ -144,12 +152,20 @@ def qsvt_circuit(be: BlockEncoding, wx_phases, form: Form = "gate", *, probe: bo
                 cache[key] = MultiplexerGate(blocks + [np.eye(u.shape[0])] * (2 * len(ctrl)), label="U·phase")
             qc.append(cache[key], [*system, *enc, signal, *ctrl], copy=False)
     else:
-        calls = _native_calls(be, len(ctrl)) if form == "simulation" else [(be.circuit.to_gate(), list(range(m)) + list(range(m + 1, m + 1 + b)))]
+        if form == "simulation":
+            calls = _native_calls(be, len(ctrl))
+        else:
+            u_gate = be.circuit.to_gate()
+            if ctrl:
+                u_gate = u_gate.control(1, ctrl_state=0)
+            calls = [(u_gate, ([m + 2 + b] if ctrl else []) + list(range(m)) + list(range(m + 1, m + 1 + b)))]
         for j in range(d - 1, -1, -1):
             for gate, qubits in calls:
                 qc.append(gate, [qc.qubits[i] for i in qubits], copy=False)
             _append_phase(qc, float(phi[j]), enc, signal, form, ctrl)
-    if probe:
+    if probe and form == "gate":
+        qc.append(HGate().control(1, ctrl_state=0), [*ctrl, signal])
+    elif probe:
         qc.append(MultiplexerGate([_H, np.eye(2)], label="close"), [signal, *ctrl], copy=False)
     else:
         qc.h(signal)
@@ -200,7 +216,10 @@ def _append_phase(qc: QuantumCircuit, phi: float, enc: list, signal, form: Form,
     # X on the signal when block = 0 (open controls), RZ(2φ), X again (GSLW Fig. 1).
     cx = XGate().control(len(enc), ctrl_state=0, annotated=False)
     qc.append(cx, [*enc, signal])
-    qc.rz(2 * phi, signal)
+    if ctrl:
+        qc.append(RZGate(2 * phi).control(1, ctrl_state=0), [*ctrl, signal])
+    else:
+        qc.rz(2 * phi, signal)
     qc.append(cx, [*enc, signal])
 
 

@@ -152,3 +152,16 @@ def test_native_lcu_calls_are_the_same_operator(monkeypatch):
     assert any(i.operation.label == "select" for i in native.data)
     worst = float(np.max(np.abs(_choi(native) - _choi(qsvt_circuit(be, phases, "gate"))))) * np.sqrt(2**native.num_qubits)
     assert worst <= 1e-10, f"native LCU calls differ from the gate form by {worst:.3g}"
+
+
+@pytest.mark.parametrize("encoding", list(ENCODINGS))
+@pytest.mark.parametrize("degree", [3, 4])
+def test_probe_controlled_forms_are_one_operator(encoding, degree):
+    # The Hadamard test's controlled sequence: gate form (controlled H, RZ and U on probe = 0)
+    # against the simulation form (multiplexers over the probe), the whole operator via Choi states.
+    be = ENCODINGS[encoding](_spd(4, 30 + degree))
+    phases = qsp_phases(_target(degree, degree, 0.8)).phases
+    gate = qsvt_circuit(be, phases, "gate", probe=True)
+    sim = qsvt_circuit(be, phases, "simulation", probe=True)
+    worst = float(np.max(np.abs(_choi(gate) - _choi(sim)))) * np.sqrt(2**gate.num_qubits)
+    assert worst <= 1e-10, f"probe-controlled gate and simulation forms differ by {worst:.3g}"
