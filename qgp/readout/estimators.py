@@ -472,13 +472,13 @@ class _HadamardTemplate:
 
 class _QsvtHadamardTemplate:
     """The Hadamard test of a QSVT inversion: k̂_right on probe = 0 and k̂_left on probe = 1, the
-    QSVT sequence on probe = 0 only (qgp.circuits.qsvt, ``probe=True``: probe = 1 keeps its input
-    with flag = 1), Hadamards on the probe. Same read-out as `_HadamardTemplate`."""
+    QSVT sequence on probe = 0 only (qgp.circuits.qsvt, ``probe=True``, in ``inv``'s form: probe = 1
+    keeps its input with flag = 1), Hadamards on the probe. Same read-out as `_HadamardTemplate`."""
 
     def __init__(self, inv: InversionCircuit):
         from qgp.circuits.qsvt import qsvt_circuit
 
-        self.body = qsvt_circuit(inv.block_encoding, inv.phases, "simulation", probe=True)
+        self.body = qsvt_circuit(inv.block_encoding, inv.phases, inv.form, probe=True)
         self.regs = list(self.body.qregs)
 
     def circuit(self, left: np.ndarray, right: np.ndarray, measure: bool = False) -> QuantumCircuit:

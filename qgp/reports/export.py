@@ -20,8 +20,8 @@ preparation and the QSVT sequence of `qgp.circuits.qsvt` with the odd polynomial
 q ≈ s·√(a/|x|) (``inversion_sqrt.qasm``, read with flag = 1: P = ‖q(A/α)ŷ‖² ≈ C′·ŷᵀA⁻¹ŷ);
 ``resources.json`` holds `qgp.circuits.resources.qsvt_resources` (gate counts of the file as
 written, state preparation included), C, C′, α, κ_b and each polynomial (degree, scale s,
-measured relative error, Chebyshev coefficients). The QSVT Hadamard test is not exported yet
-(``--test-point`` is refused).
+measured relative error, Chebyshev coefficients). With a test point, ``hadamard_test_J.qasm`` holds
+the QSVT sequence controlled on the probe (read with flag = 1, block = 0: no clock).
 
 The file format is `qgp.circuits.qasm`'s. Files are written atomically, and an export never
 replaces files of an earlier one unless forced (`qgp.files`).
@@ -113,8 +113,8 @@ _QSVT_REGISTERS_NOTE = (
     "block holding the block encoding's qubits and, last, the QSVT signal qubit."
 )
 _QSVT_HADAMARD_NOTE = (
-    "not written yet for [circuit] method = \"qsvt\": `qgp export --test-point` is refused; the predictive mean "
-    "of a test point needs the Hadamard test of the QSVT circuit, which qgp does not export so far"
+    "written with --test-point J (hadamard_test_J.qasm): the QSVT sequence with its Hadamards, phase rotations "
+    "and block-encoding calls controlled on probe = 0"
 )
 
 
@@ -318,10 +318,11 @@ class HadamardPoint:
     expected: dict | None = None
 
 
-def _hadamard_reading(file: str) -> str:
+def _hadamard_reading(file: str, clock: bool = True) -> str:
     return (
         f"Run {file} from |0...0> and let P0 (P1) be the probability of probe=0 (probe=1) together with "
-        "flag=1, clock=0, block=0. Then P0 - P1 = Re<khat|C*A^-1|yhat> and the predictive mean at the test point "
+        + ("flag=1, clock=0, block=0" if clock else "flag=1, block=0 (no clock register)")
+        + ". Then P0 - P1 = Re<khat|C*A^-1|yhat> and the predictive mean at the test point "
         "is prior_mean + y_norm*k_star_norm*(P0 - P1)/scale_inverse. From N shots with counts n0, n1: "
         "P0 ~ n0/N, P1 ~ n1/N, standard error of the mean y_norm*k_star_norm/scale_inverse*"
         "sqrt((P0 + P1 - (P0 - P1)^2)/N) (one multinomial draw over probe=0, probe=1 and not selected)."
@@ -341,22 +342,29 @@ def _flag_rotation_named(dec: DecomposedCircuit) -> DecomposedCircuit:
     return replace(dec, pieces={k: replace(p, name="flag_rotation") if k in keys else p for k, p in dec.pieces.items()})
 
 
+def _qpe_body(inv: InversionCircuit):
+    """The phase-estimation body of ``inv`` for its Hadamard test (None for QSVT, whose test is
+    built from the inversion itself: qgp.readout.estimators)."""
+    from qgp.circuits.phase_estimation import phase_estimation_circuit
+
+    return phase_estimation_circuit(inv.oracle) if inv.oracle is not None else None
+
+
 def _hadamard_text(gi: GateInversion, b: np.ndarray, point: HadamardPoint, title: str, *, measure: bool):
     """(decomposed Hadamard-test circuit, file text) of ``point`` in the gate form of ``gi``."""
     from qgp.readout.estimators import hadamard_test_circuit
-    from qgp.circuits.phase_estimation import phase_estimation_circuit
 
     inv = gi.inversion
-    qpe = phase_estimation_circuit(inv.oracle)
-    dec = _flag_rotation_named(decompose_circuit(hadamard_test_circuit(qpe, inv, point.khat, b)))
+    named = _qsvt_named if _is_qsvt(inv) else _flag_rotation_named
+    dec = named(decompose_circuit(hadamard_test_circuit(_qpe_body(inv), inv, point.khat, b), open_repeats=not _is_qsvt(inv)))
     file = hadamard_file(point.index)
     s = inv.settings
     header = [
         title,
         f"Hadamard test of test point {point.index}: probe=0 prepares yhat and applies C*A^-1, probe=1 prepares "
-        f"khat; {method_description(s)}"
+        f"khat; {algorithm_of(s).label(s)}"
         + f", {s.clock_qubits} clock qubits; C = {number_text(inv.scale)}",
-        "read P0, P1 = P(probe=0, 1 and flag=1, clock=0, block=0); mean = prior_mean + y_norm*k_star_norm*(P0 - P1)/C "
+        "read P0, P1 = P(probe=0, 1 and flag=1, " + ("" if _is_qsvt(inv) else "clock=0, ") + "block=0); mean = prior_mean + y_norm*k_star_norm*(P0 - P1)/C "
         f"(numbers in {RESOURCES_FILE})" + ("; every register r measured into c_r" if measure else ""),
     ]
     return file, dec, to_qasm3(dec, header, measure=measure)
@@ -413,18 +421,9 @@ def file_resources(A, gi: GateInversion) -> CircuitResources:
     return replace(res, prepared=gi.prepared, gate_counts=gate_counts_by_basis(gi.decomposed))
 
 
-def _hadamard_refusal() -> QgpError:
-    return QgpError(
-        "--test-point: the Hadamard test of the QSVT circuits is not exported yet; export without --test-point "
-        '(inversion.qasm, inversion_sqrt.qasm and resources.json), or use [circuit] method = "phase_estimation"'
-    )
-
-
 def _export_qsvt_inversions(A, settings, bounds, yhat, out_dir, *, title, extra, measure, point, force, inputs) -> list[Path]:
     """`export_inversions` for ``method = "qsvt"`` (module docstring)."""
-    if point is not None:
-        raise _hadamard_refusal()
-    names = [INVERSION_FILE, INVERSION_SQRT_FILE, RESOURCES_FILE]
+    names = [INVERSION_FILE, INVERSION_SQRT_FILE] + ([hadamard_file(point.index)] if point else []) + [RESOURCES_FILE]
     out = check_outputs(out_dir, names, force=force, option="--out", inputs=inputs)
     refuse_if_too_large(A, settings, f"the QSVT ({settings.encoding}) inversion circuit")
     b = normalised_amplitudes(yhat)
@@ -454,6 +453,9 @@ def _export_qsvt_inversions(A, settings, bounds, yhat, out_dir, *, title, extra,
         doc["resources"][file] = resources[file]
         doc["constants"][file] = constants_document(gi)
         texts[file] = to_qasm3(gi.decomposed, header_lines(title, gi, file, measure=measure), measure=measure)
+    if point is not None:
+        doc.pop("hadamard_test")
+        _add_test_point(doc, texts, inv, b, point, title, measure)
     return _write_export(out, texts, doc)
 
 
@@ -549,25 +551,31 @@ def export_inversions(
         doc["constants"][file] = constants_document(gi)
         texts[file] = to_qasm3(gi.decomposed, header_lines(title, gi, file, measure=measure), measure=measure)
     if point is not None:
-        file, dec, texts[file] = _hadamard_text(inv, b, point, title, measure=measure)
-        qubits = dict(dec.registers)
-        qubits["total"] = dec.num_qubits
-        doc["gate_counts"][file] = gate_counts_by_basis(dec)
-        doc["resources"][file] = {"qubits": qubits, "gate_counts": doc["gate_counts"][file]}
-        doc["test_point"] = {
-            "index": point.index,
-            "x": list(point.x),
-            "file": file,
-            "probe": PROBE,
-            "projector": HADAMARD_PROJECTOR,
-            "prior_mean": point.prior_mean,
-            "y_norm": point.y_norm,
-            "k_star_norm": point.k_star_norm,
-            "scale_inverse": inv.inversion.scale,
-            "reading": _hadamard_reading(file),
-            "expected": point.expected,
-        }
+        _add_test_point(doc, texts, inv, b, point, title, measure)
     return _write_export(out, texts, doc)
+
+
+def _add_test_point(doc: dict, texts: dict, inv: GateInversion, b, point: HadamardPoint, title: str, measure: bool) -> None:
+    """The Hadamard-test file of ``point`` into ``texts`` and its counts and constants into ``doc``."""
+    file, dec, texts[file] = _hadamard_text(inv, b, point, title, measure=measure)
+    qsvt = _is_qsvt(inv.inversion)
+    qubits = dict(dec.registers)
+    qubits["total"] = dec.num_qubits
+    doc["gate_counts"][file] = gate_counts_by_basis(dec)
+    doc["resources"][file] = {"qubits": qubits, "gate_counts": doc["gate_counts"][file]}
+    doc["test_point"] = {
+        "index": point.index,
+        "x": list(point.x),
+        "file": file,
+        "probe": PROBE,
+        "projector": HADAMARD_PROJECTOR if not qsvt else {FLAG: 1, BLOCK: 0},
+        "prior_mean": point.prior_mean,
+        "y_norm": point.y_norm,
+        "k_star_norm": point.k_star_norm,
+        "scale_inverse": inv.inversion.scale,
+        "reading": _hadamard_reading(file, clock=not qsvt),
+        "expected": point.expected,
+    }
 
 
 def export_config(cfg: Config, out_dir, *, measure: bool = False, test_point: int | None = None, force: bool = False) -> list[Path]:
@@ -601,8 +609,6 @@ def export_config(cfg: Config, out_dir, *, measure: bool = False, test_point: in
     from qgp.classical.problem import problem_from_config
     from qgp.classical.system import eigenvalue_bounds
 
-    if test_point is not None and not algorithm_of(cfg.circuit).uses_clock:
-        raise _hadamard_refusal()
     names = [INVERSION_FILE, INVERSION_SQRT_FILE] + ([hadamard_file(test_point)] if test_point is not None else [])
     inputs = [cfg.source] if cfg.source else []
     check_outputs(out_dir, names + [RESOURCES_FILE], force=force, option="--out", inputs=inputs)
@@ -649,7 +655,6 @@ def _hadamard_point(problem, settings: CircuitSettings, bounds, j: int) -> Hadam
     """
     from qgp.readout.estimators import per_point_hadamard
     from qgp.circuits.inversion import build_inversion
-    from qgp.circuits.phase_estimation import phase_estimation_circuit
 
     y = problem.padded(problem.y_centered)
     y_norm = float(np.linalg.norm(y))
@@ -657,8 +662,7 @@ def _hadamard_point(problem, settings: CircuitSettings, bounds, j: int) -> Hadam
     k_norm = float(np.linalg.norm(k))
     khat = k / k_norm if k_norm > 0 else np.eye(k.size)[0]  # a zero k* has mean = prior mean
     inv = build_inversion(problem.A_padded, settings, "inverse", bounds, form="simulation")
-    qpe = phase_estimation_circuit(inv.oracle)
-    p0, p1 = per_point_hadamard(qpe, inv, khat[:, None], (y / y_norm)[:, None])
+    p0, p1 = per_point_hadamard(_qpe_body(inv), inv, khat[:, None], (y / y_norm)[:, None])
     mean = problem.y_offset + y_norm * k_norm * float(p0[0] - p1[0]) / inv.scale
     exact = problem.exact.predict(problem.X_test[j : j + 1])
     return HadamardPoint(

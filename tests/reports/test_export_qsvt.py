@@ -24,9 +24,7 @@ from qgp.circuits.inversion import build_inversion
 from qgp.classical.problem import problem_from_config
 from qgp.classical.system import eigenvalue_bounds
 from qgp.config import load_config
-from qgp.errors import QgpError
 from qgp.reports.export import INVERSION_FILE, INVERSION_SQRT_FILE, RESOURCES_FILE, export_config
-from qgp.tools.cli import main as cli_main
 
 # A file against numpy's p(A/α)ŷ: the file's angles are 17-digit text and each dense block-encoding
 # call is synthesised to ~1e-14; 55 calls stay far below this.
@@ -118,7 +116,7 @@ def test_qsvt_export_writes_the_inversion_files_and_their_constants(exported):
     assert doc["scale_inverse"] == doc["constants"][INVERSION_FILE]["scale"]
     assert doc["scale_inverse_sqrt"] == doc["constants"][INVERSION_SQRT_FILE]["scale"]
     assert "sqrt(P)/C" in doc["reading"][INVERSION_FILE] and "P/C'" in doc["reading"][INVERSION_SQRT_FILE]
-    assert "not written yet" in doc["hadamard_test"]
+    assert "--test-point" in doc["hadamard_test"]
     assert "no clock register" in doc["format"]
     assert doc["platform"]["machine"] and "qiskit" in doc["versions"]
 
@@ -200,15 +198,27 @@ def test_qsvt_file_gates_are_the_counted_gates(exported):
 # Never overwriting without --force: tests/reports/test_export.py::test_export_never_overwrites_without_force[qsvt].
 
 
-def test_qsvt_export_refuses_a_test_point(tmp_path, capsys):
-    # The QSVT Hadamard test is not exported yet: refused in one line, before anything is written.
-    cfg_path = _write_config(tmp_path, "dilation")
-    with pytest.raises(QgpError, match="Hadamard test of the QSVT circuits is not exported yet"):
-        export_config(load_config(cfg_path), tmp_path / "out", test_point=0)
-    assert cli_main(["export", str(cfg_path), "--out", str(tmp_path / "out"), "--test-point", "0"]) == 2
-    err_lines = capsys.readouterr().err.strip().splitlines()
-    assert len(err_lines) == 1 and "not exported yet" in err_lines[0], err_lines
-    assert not (tmp_path / "out").exists()
+def test_qsvt_hadamard_test_file_gives_the_expected_probabilities(tmp_path):
+    # The exported gate-form Hadamard test (qasm3.loads → qiskit's Statevector) against the P0, P1
+    # qgp computes from the simulation form (resources.json "expected"), to 1e-8; and the mean
+    # rebuilt from them with the file's constants.
+    from qiskit.quantum_info import Statevector
+
+    cfg = load_config(_write_config(tmp_path, "dilation"))
+    paths = export_config(cfg, tmp_path / "out", test_point=0)
+    doc = json.loads((tmp_path / "out" / RESOURCES_FILE).read_text())
+    tp = doc["test_point"]
+    qc = qasm3.loads((tmp_path / "out" / tp["file"]).read_text())
+    assert [r.name for r in qc.qregs] == ["system", "flag", "block", "probe"]
+    assert tp["projector"] == {"flag": 1, "block": 0} and "clock" not in tp["reading"].split("(no clock")[0]
+    sizes = [r.size for r in qc.qregs]
+    probs = np.abs(Statevector(qc).data.reshape([2 ** n for n in reversed(sizes)])) ** 2  # [probe, block, flag, system]
+    p0, p1 = (float(np.sum(probs[b, 0, 1, :])) for b in (0, 1))
+    worst = max(abs(p0 - tp["expected"]["P0"]), abs(p1 - tp["expected"]["P1"]))
+    assert worst <= 1e-8, f"file P0, P1 differ from qgp's by {worst:.3g}"
+    mean = tp["prior_mean"] + tp["y_norm"] * tp["k_star_norm"] * (p0 - p1) / tp["scale_inverse"]
+    assert abs(mean - tp["expected"]["mean_from_exact_probabilities"]) <= 1e-8 * max(1.0, abs(mean))
+    assert len(paths) == 4
 
 
 def test_measured_qsvt_file_declares_one_classical_register_per_register(tmp_path):
