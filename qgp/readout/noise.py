@@ -1,0 +1,237 @@
+"""Gate noise: how depolarising gate errors and read-out flips change qgp's event probabilities.
+
+Noise acts on the gate-level circuit a device would run: each measurement-free circuit is
+transpiled to ``GateNoise.basis`` (default ``rz, sx, x, cx``) at optimisation level 0 (where qgp
+counts its resources), then simulated by qiskit-aer with a `NoiseModel`:
+
+* ``depolarizing_error(one_qubit, 1)`` after every one-qubit basis gate except ``rz``: ``rz`` is
+  virtual (a frame change in the control software) and error-free on hardware — common practice
+  in device noise models, made explicit here;
+* ``depolarizing_error(two_qubit, 2)`` after every two-qubit basis gate;
+* a symmetric ``ReadoutError([[1-r, r], [r, 1-r]])`` on every qubit when ``readout > 0``.
+
+Depolarising parameters are kept in [0, 1] (λ = 1 is the fully depolarising channel), although
+qiskit-aer's ``depolarizing_error`` accepts λ up to 4^n/(4^n − 1) (the uniform Pauli channel).
+
+Two methods: ``"density_matrix"`` (exact; 16·4^q bytes, refused above the memory cap before
+anything is allocated) and ``"trajectories"`` (the statevector method with one noise sample per
+shot; Aer 0.18's ``save_probabilities(pershot=True)`` returns each trajectory's exact probability
+vector, so the estimate is their mean, with standard error std/√N). Aer runs a circuit with no
+noisy instruction once and returns one per-shot entry; it then counts as N identical trajectories.
+
+Saved probabilities never see a ``ReadoutError`` (it acts on measurements only), so the read-out
+flip is applied here: for each qubit in an event, P(observed v) = Σ_u M[v, u] P(true u), by
+applying the 2×2 flip matrix M along that qubit's axis of the probability tensor before summing.
+
+Sources: qiskit-aer 0.18 (``qiskit_aer.noise.depolarizing_error``, ``ReadoutError``,
+``NoiseModel``, ``AerSimulator``, ``save_probabilities``); Nielsen & Chuang eq. 8.102 (the
+depolarising channel).
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from typing import Literal
+
+import numpy as np
+from qiskit import QuantumCircuit, transpile
+
+from qgp.errors import QgpError
+from qgp.memory import require_memory, statevector_bytes
+
+__all__ = ["GateNoise", "ProbabilityResult", "noise_model", "gate_level", "event_probabilities"]
+
+VIRTUAL_GATES = frozenset({"rz"})  # error-free on hardware (frame changes)
+
+
+def _gate_arity(name: str) -> int:
+    from qiskit.circuit.library import get_standard_gate_name_mapping
+
+    gate = get_standard_gate_name_mapping().get(name)
+    if gate is None:
+        raise QgpError(f"unknown basis gate {name!r}; use qiskit standard gate names such as rz, sx, x, cx")
+    return gate.num_qubits
+
+
+@dataclass(frozen=True)
+class GateNoise:
+    """Gate-noise settings; checked on construction (`check`).
+
+    Parameters
+    ----------
+    two_qubit, one_qubit : float
+        Depolarising parameters λ in [0, 1] after each two-qubit / non-virtual one-qubit gate.
+    readout : float
+        Symmetric read-out flip probability r in [0, 1].
+    basis : tuple of str
+        Gate-level basis; must hold a two-qubit gate, and only one- and two-qubit gates.
+    method : {"density_matrix", "trajectories"}
+    trajectories : int
+        Shots (noise samples) for ``method="trajectories"``, at least 1.
+    seed : int
+        Seed of the transpiler and of the trajectory sampler.
+    """
+
+    two_qubit: float = 0.0
+    one_qubit: float = 0.0
+    readout: float = 0.0
+    basis: tuple[str, ...] = ("rz", "sx", "x", "cx")
+    method: Literal["density_matrix", "trajectories"] = "density_matrix"
+    trajectories: int = 1000
+    seed: int = 0
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "basis", tuple(str(b) for b in self.basis))
+        self.check()
+
+    def check(self) -> None:
+        """Raise `QgpError` (one line, naming the fix) for a setting that cannot run."""
+        for name in ("two_qubit", "one_qubit", "readout"):
+            value = getattr(self, name)
+            if not 0.0 <= float(value) <= 1.0:
+                raise QgpError(
+                    f"noise {name} = {value} is outside [0, 1]; give a probability in [0, 1] "
+                    "(qgp keeps depolarising λ ≤ 1 although Aer accepts up to 4^n/(4^n−1))"
+                )
+        arity = {b: _gate_arity(b) for b in self.basis}
+        if any(n > 2 for n in arity.values()):
+            raise QgpError(f"noise basis {list(self.basis)} has gates on more than two qubits; use one- and two-qubit gates only")
+        if 2 not in arity.values():
+            raise QgpError(f"noise basis {list(self.basis)} has no two-qubit gate; add one such as 'cx'")
+        if self.method not in ("density_matrix", "trajectories"):
+            raise QgpError(f"noise method {self.method!r} is unknown; use 'density_matrix' or 'trajectories'")
+        if int(self.trajectories) < 1:
+            raise QgpError(f"noise trajectories = {self.trajectories}; use at least 1")
+
+
+@dataclass(frozen=True)
+class ProbabilityResult:
+    """Event probabilities under noise.
+
+    Attributes
+    ----------
+    probabilities : tuple of ndarray
+        One float array of shape (n_events_i,) per circuit.
+    standard_errors : tuple of ndarray
+        Same shapes: std/√N over trajectories (zeros for the density matrix).
+    method : str
+    trajectories : int
+        Noise samples per circuit (1 for the density matrix).
+    seconds : float
+        Wall time of the simulation (transpiling excluded).
+    """
+
+    probabilities: tuple[np.ndarray, ...]
+    standard_errors: tuple[np.ndarray, ...]
+    method: str
+    trajectories: int
+    seconds: float
+
+
+def noise_model(spec: GateNoise):
+    """The Aer `NoiseModel` of ``spec`` (empty — ideal — when every probability is zero)."""
+    from qiskit_aer.noise import NoiseModel, ReadoutError, depolarizing_error
+
+    model = NoiseModel(basis_gates=list(spec.basis))
+    one = [b for b in spec.basis if _gate_arity(b) == 1 and b not in VIRTUAL_GATES]
+    two = [b for b in spec.basis if _gate_arity(b) == 2]
+    if spec.one_qubit > 0 and one:
+        model.add_all_qubit_quantum_error(depolarizing_error(float(spec.one_qubit), 1), one)
+    if spec.two_qubit > 0:
+        model.add_all_qubit_quantum_error(depolarizing_error(float(spec.two_qubit), 2), two)
+    if spec.readout > 0:
+        r = float(spec.readout)
+        model.add_all_qubit_readout_error(ReadoutError([[1 - r, r], [r, 1 - r]]))
+    return model
+
+
+def gate_level(circuit: QuantumCircuit, spec: GateNoise) -> QuantumCircuit:
+    """``circuit`` transpiled to ``spec.basis`` at optimisation level 0 (seed ``spec.seed``)."""
+    if any(inst.operation.name == "measure" for inst in circuit.data) or circuit.num_clbits:
+        raise QgpError(f"circuit {circuit.name!r} has measurements or classical bits; pass the measurement-free circuit")
+    return transpile(circuit, basis_gates=list(spec.basis), optimization_level=0, seed_transpiler=int(spec.seed))
+
+
+def _check_events(events: list[dict[int, int]], n_qubits: int) -> list[int]:
+    for event in events:
+        for q, v in event.items():
+            if not 0 <= int(q) < n_qubits or v not in (0, 1):
+                raise QgpError(f"event {event} needs qubits in 0..{n_qubits - 1} and values 0 or 1; fix the event")
+    return sorted({int(q) for event in events for q in event}) or [0]
+
+
+def _events_from(probs: np.ndarray, saved: list[int], events, readout: float) -> np.ndarray:
+    """Event probabilities, shape (N, n_events), from saved probabilities of shape (N, 2^k) over
+    the qubits ``saved`` (bit j of an index is qubit ``saved[j]``), after the read-out flips."""
+    k = len(saved)
+    tensor = probs.reshape((probs.shape[0],) + (2,) * k)  # axis 1 + (k-1-j) is saved[j]
+    flip = np.array([[1 - readout, readout], [readout, 1 - readout]])
+    out = np.empty((probs.shape[0], len(events)))
+    for e, event in enumerate(events):
+        t = tensor
+        index: list = [slice(None)] * (k + 1)
+        for q, v in event.items():
+            axis = 1 + (k - 1 - saved.index(int(q)))
+            if readout > 0:
+                t = np.moveaxis(np.tensordot(flip, t, axes=([1], [axis])), 0, axis)
+            index[axis] = int(v)
+        out[:, e] = t[tuple(index)].reshape(probs.shape[0], -1).sum(axis=1)
+    return out
+
+
+def event_probabilities(circuits, events, spec: GateNoise, *, cap_bytes: int | None = None) -> ProbabilityResult:
+    """Probability of each event under ``spec``'s noise, for each measurement-free circuit.
+
+    Parameters
+    ----------
+    circuits : list of QuantumCircuit
+        Measurement-free circuits (any gates; transpiled here with `gate_level`).
+    events : list of list of dict[int, int]
+        ``events[i]`` lists circuit i's events, each a dict qubit index → 0/1 (qiskit's order).
+    spec : GateNoise
+    cap_bytes : int, optional
+        Memory cap; default half the available memory (`qgp.memory.default_memory_cap`).
+
+    Returns
+    -------
+    ProbabilityResult
+        ``probabilities[i]`` and ``standard_errors[i]`` of shape (len(events[i]),).
+    """
+    from qiskit_aer import AerSimulator
+
+    circuits = list(circuits)
+    if len(events) != len(circuits):
+        raise QgpError(f"got {len(events)} event lists for {len(circuits)} circuits; give one list per circuit")
+    saved = [_check_events(ev, c.num_qubits) for c, ev in zip(circuits, events)]
+    n_max = max((c.num_qubits for c in circuits), default=0)
+    trajectories = spec.method == "trajectories"
+    if trajectories:
+        k_max = max((len(s) for s in saved), default=0)
+        require_memory(statevector_bytes(n_max) + 8 * spec.trajectories * (1 << k_max), "a noisy trajectory run", cap_bytes)
+    else:
+        require_memory(16 * 4**n_max, f"a {n_max}-qubit density matrix (16·4^q bytes)", cap_bytes)
+    runs = []
+    for c, s in zip(circuits, saved):
+        g = gate_level(c, spec)
+        g.save_probabilities(qubits=s, pershot=trajectories)
+        runs.append(g)
+    model = noise_model(spec)
+    if trajectories:
+        sim = AerSimulator(method="statevector", noise_model=model, seed_simulator=int(spec.seed))
+        shots = int(spec.trajectories)
+    else:
+        sim = AerSimulator(method="density_matrix", noise_model=model)
+        shots = 1
+    start = time.perf_counter()
+    result = sim.run(runs, shots=shots).result() if runs else None
+    seconds = time.perf_counter() - start
+    means, errors = [], []
+    for i, (ev, s) in enumerate(zip(events, saved)):
+        probs = np.atleast_2d(np.asarray(result.data(i)["probabilities"], dtype=float))
+        per = _events_from(probs, s, ev, float(spec.readout))
+        means.append(per.mean(axis=0))
+        # One entry means Aer ran the circuit once (nothing noisy): N identical trajectories.
+        n = per.shape[0]
+        errors.append(per.std(axis=0, ddof=1) / np.sqrt(n) if n > 1 else np.zeros(len(ev)))
+    return ProbabilityResult(tuple(means), tuple(errors), spec.method, shots, seconds)
