@@ -49,6 +49,7 @@ from qgp.circuits.encoding import (
 )
 from qgp.circuits.inversion import FLAG, InversionCircuit, build_inversion
 from qgp.circuits.methods import method_description
+from qgp.circuits.methods.encodings import get_encoding
 from qgp.circuits.phase_estimation import CLOCK
 from qgp.circuits.qasm import FORMAT_NOTE, number_text, to_qasm3
 from qgp.circuits.resources import (
@@ -260,8 +261,6 @@ def header_lines(title: str, gi: GateInversion, file: str, *, measure: bool = Fa
 def _qsvt_call_size(m: int, settings: CircuitSettings, terms: int) -> tuple[int, str]:
     """Gates to synthesise for one call of the block encoding (its controlled form's estimate, as
     `qsvt_resources` counts it: an upper bound) and a description."""
-    from qgp.circuits.methods.encodings import get_encoding
-
     piece = get_encoding(settings.encoding).size_piece(m, terms=terms, n_pe=1, calls=1)
     return piece.synthesis_gates, (
         f"one call of the {settings.encoding} block encoding on {m} system qubits synthesises to ≈ "
@@ -287,7 +286,7 @@ def refuse_if_too_large(A, settings: CircuitSettings, what: str) -> None:
         a = check_matrix(A)
         m = a.shape[0].bit_length() - 1
         terms = 0
-        if settings.encoding == "lcu":  # A's own term count where decomposing it is cheap, else the bound
+        if get_encoding(settings.encoding).needs_pauli_terms():  # A's own term count where cheap, else the bound
             terms = len(pauli_decomposition(a)) if m <= _MAX_TERM_COUNT_QUBITS else pauli_terms_bound(m)
         _refuse_qsvt_if_too_large(m, settings, what, terms)
         return
@@ -421,44 +420,6 @@ def file_resources(A, gi: GateInversion) -> CircuitResources:
     return replace(res, prepared=gi.prepared, gate_counts=gate_counts_by_basis(gi.decomposed))
 
 
-def _export_qsvt_inversions(A, settings, bounds, yhat, out_dir, *, title, extra, measure, point, force, inputs) -> list[Path]:
-    """`export_inversions` for ``method = "qsvt"`` (module docstring)."""
-    names = [INVERSION_FILE, INVERSION_SQRT_FILE] + ([hadamard_file(point.index)] if point else []) + [RESOURCES_FILE]
-    out = check_outputs(out_dir, names, force=force, option="--out", inputs=inputs)
-    refuse_if_too_large(A, settings, f"the QSVT ({settings.encoding}) inversion circuit")
-    b = normalised_amplitudes(yhat)
-    inv = exported_inversion(A, settings, "inverse", bounds, prepare=b)
-    inv_sqrt = exported_inversion(A, settings, "inverse_sqrt", bounds, prepare=b)
-    resources = {file: file_resources(A, gi).as_dict() for file, gi in ((INVERSION_FILE, inv), (INVERSION_SQRT_FILE, inv_sqrt))}
-    doc = {
-        "format": f"{FORMAT_NOTE} {_QSVT_REGISTERS_NOTE}",
-        **(extra or {}),
-        "method": settings.method,
-        "qubits": resources[INVERSION_FILE]["qubits"],
-        "scale_inverse": inv.inversion.scale,
-        "scale_inverse_sqrt": inv_sqrt.inversion.scale,
-        "alpha": inv.inversion.alpha,
-        "effective_condition_number": inv.inversion.effective_condition_number,
-        "projectors": QSVT_PROJECTORS,
-        "measured": bool(measure),
-        "reading": {file: reading_text(file, clock=False) for file in (INVERSION_FILE, INVERSION_SQRT_FILE)},
-        "gate_counts": {},
-        "resources": {},
-        "constants": {},
-        "hadamard_test": _QSVT_HADAMARD_NOTE,
-    }
-    texts: dict[str, str] = {}
-    for file, gi in ((INVERSION_FILE, inv), (INVERSION_SQRT_FILE, inv_sqrt)):
-        doc["gate_counts"][file] = resources[file]["gate_counts"]
-        doc["resources"][file] = resources[file]
-        doc["constants"][file] = constants_document(gi)
-        texts[file] = to_qasm3(gi.decomposed, header_lines(title, gi, file, measure=measure), measure=measure)
-    if point is not None:
-        doc.pop("hadamard_test")
-        _add_test_point(doc, texts, inv, b, point, title, measure)
-    return _write_export(out, texts, doc)
-
-
 def _write_export(out: Path, texts: dict[str, str], doc: dict) -> list[Path]:
     """Write the OpenQASM files and resources.json (versions and platform added), each atomically."""
     doc["versions"] = qiskit_versions()
@@ -519,37 +480,38 @@ def export_inversions(
     list of Path
         The files written, resources.json last. Each is written atomically.
     """
-    if not algorithm_of(settings).uses_clock:
-        return _export_qsvt_inversions(
-            A, settings, bounds, yhat, out_dir, title=title, extra=extra, measure=measure, point=point, force=force,
-            inputs=inputs,
-        )
+    clock = algorithm_of(settings).uses_clock
     names = [INVERSION_FILE, INVERSION_SQRT_FILE] + ([hadamard_file(point.index)] if point else []) + [RESOURCES_FILE]
     out = check_outputs(out_dir, names, force=force, option="--out", inputs=inputs)
-    refuse_if_too_large(A, settings, f"the {settings.evolution} inversion circuit")
+    what = settings.evolution if clock else f"QSVT ({settings.encoding})"
+    refuse_if_too_large(A, settings, f"the {what} inversion circuit")
     b = normalised_amplitudes(yhat)
-    inv = gate_inversion(A, settings, "inverse", bounds, prepare=b)
-    inv_sqrt = gate_inversion(A, settings, "inverse_sqrt", bounds, prepare=b)
+    inv = exported_inversion(A, settings, "inverse", bounds, prepare=b)
+    inv_sqrt = exported_inversion(A, settings, "inverse_sqrt", bounds, prepare=b)
+    files = ((INVERSION_FILE, inv), (INVERSION_SQRT_FILE, inv_sqrt))
+    resources = {file: file_resources(A, gi).as_dict() for file, gi in files}
+    # QSVT adds what its files need beyond phase estimation's (which stay as they were).
     doc = {
-        "format": FORMAT_NOTE,
+        "format": FORMAT_NOTE if clock else f"{FORMAT_NOTE} {_QSVT_REGISTERS_NOTE}",
         **(extra or {}),
-        "qubits": resources_of(inv).as_dict()["qubits"],
+        **({} if clock else {"method": settings.method}),
+        "qubits": resources[INVERSION_FILE]["qubits"],
         "scale_inverse": inv.inversion.scale,
         "scale_inverse_sqrt": inv_sqrt.inversion.scale,
-        "projectors": PROJECTORS,
+        **(
+            {}
+            if clock
+            else {"alpha": inv.inversion.alpha, "effective_condition_number": inv.inversion.effective_condition_number}
+        ),
+        "projectors": projectors_of(settings),
         "measured": bool(measure),
-        "reading": {INVERSION_FILE: reading_text(INVERSION_FILE), INVERSION_SQRT_FILE: reading_text(INVERSION_SQRT_FILE)},
-        "gate_counts": {},
-        "resources": {},
-        "constants": {},
+        "reading": {file: reading_text(file, clock=clock) for file, _ in files},
+        "gate_counts": {file: resources[file]["gate_counts"] for file, _ in files},
+        "resources": resources,
+        "constants": {file: constants_document(gi) for file, gi in files},
+        **({} if clock or point is not None else {"hadamard_test": _QSVT_HADAMARD_NOTE}),
     }
-    texts: dict[str, str] = {}
-    for file, gi in ((INVERSION_FILE, inv), (INVERSION_SQRT_FILE, inv_sqrt)):
-        res = resources_of(gi).as_dict()
-        doc["gate_counts"][file] = res["gate_counts"]
-        doc["resources"][file] = res
-        doc["constants"][file] = constants_document(gi)
-        texts[file] = to_qasm3(gi.decomposed, header_lines(title, gi, file, measure=measure), measure=measure)
+    texts = {file: to_qasm3(gi.decomposed, header_lines(title, gi, file, measure=measure), measure=measure) for file, gi in files}
     if point is not None:
         _add_test_point(doc, texts, inv, b, point, title, measure)
     return _write_export(out, texts, doc)
