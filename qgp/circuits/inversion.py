@@ -53,6 +53,7 @@ from qgp.settings import CircuitSettings, Rotation, choices
 
 __all__ = [
     "check_inversion_inputs",
+    "check_bounds",
     "FLAG",
     "InversionCircuit",
     "build_inversion",
@@ -143,6 +144,15 @@ def check_inversion_inputs(A, settings: CircuitSettings, rotation, bounds, form)
     if not isinstance(c, (int, np.integer)) or c < 1:
         raise QgpError(f"[circuit] clock_qubits must be an integer ≥ 1, got {c!r}")
     get_method(settings.evolution).check(settings)
+    lo, hi = check_bounds(bounds)
+    ff = settings.filter_floor
+    if ff is not None and not (np.isfinite(ff) and ff > 0):
+        raise QgpError(f"[circuit] filter_floor must be a positive number, got {ff!r}")
+    return a, lo, hi
+
+
+def check_bounds(bounds) -> tuple[float, float]:
+    """(λ_lo, λ_hi) as floats, or `QgpError` unless 0 < λ_lo ≤ λ_hi (every inversion method's check)."""
     try:
         lo, hi = (float(x) for x in bounds)
     except (TypeError, ValueError):
@@ -152,10 +162,7 @@ def check_inversion_inputs(A, settings: CircuitSettings, rotation, bounds, form)
             f"eigenvalue bounds must satisfy 0 < λ_lo ≤ λ_hi, got ({lo!r}, {hi!r}); "
             "A must be positive definite (add noise variance σ²)"
         )
-    ff = settings.filter_floor
-    if ff is not None and not (np.isfinite(ff) and ff > 0):
-        raise QgpError(f"[circuit] filter_floor must be a positive number, got {ff!r}")
-    return a, lo, hi
+    return lo, hi
 
 
 def filter_floor(oracle, lambda_lo: float, override: float | None = None) -> float:

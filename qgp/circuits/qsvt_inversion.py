@@ -20,7 +20,7 @@ import numpy as np
 from qiskit.circuit import QuantumCircuit
 
 from qgp.circuits.encoding import amplitude_encoding, check_matrix
-from qgp.circuits.inversion import InversionCircuit
+from qgp.circuits.inversion import InversionCircuit, check_bounds
 from qgp.circuits.methods.encodings import get_encoding
 from qgp.circuits.phase_estimation import Form
 from qgp.circuits.polynomials import InversionPolynomial, inverse_sqrt_polynomial, inversion_polynomial
@@ -84,12 +84,7 @@ def build_qsvt_inversion(
     A is never eigensolved here (the dilation encoding diagonalises A only to build √(I − A²/α²)).
     """
     a = check_matrix(A)
-    lo, hi = (float(x) for x in bounds)
-    if not (np.isfinite(lo) and np.isfinite(hi) and 0 < lo <= hi):
-        raise QgpError(
-            f"eigenvalue bounds must satisfy 0 < λ_lo ≤ λ_hi, got ({lo!r}, {hi!r}); "
-            "A must be positive definite (add noise variance σ²)"
-        )
+    lo, hi = check_bounds(bounds)
     m = a.shape[0].bit_length() - 1
     be = get_encoding(settings.encoding).build(a)
     kappa = float(be.alpha / lo)
