@@ -5,7 +5,7 @@ registry (``[circuit] evolution``), a clock register and an eigenvalue-condition
 (qgp.circuits.inversion). ``qsvt``: the quantum singular value transformation of the
 ``[circuit] encoding`` with a polynomial (qgp.circuits.qsvt_inversion). Both build an
 `InversionCircuit` with the same read-out (flag = 1, clock = 0, block = 0); what differs — the
-registers, the strategies implemented, the error budget's idealised stage, the label — is here,
+registers, the error budget's idealised stage, the label — is here,
 so code elsewhere asks `algorithm_of(settings)` and never compares method names.
 """
 
@@ -24,13 +24,11 @@ __all__ = ["Algorithm", "ALGORITHMS", "algorithm_of"]
 class Algorithm:
     """One ``[circuit] method``.
 
-    ``strategies``: the read-out strategies implemented for its circuits; ``budget_stage``: the
-    name of the error budget's idealised stage (what the method applies to each eigenvalue,
+    ``budget_stage``: the name of the error budget's idealised stage (what the method applies to each eigenvalue,
     without the circuit); ``uses_clock``: whether it has a clock register.
     """
 
     name: str
-    strategies: tuple[str, ...]
     budget_stage: str
     uses_clock: bool
     #: Legend labels of the run's filter figure: the idealised response and its lower cut.
@@ -81,9 +79,9 @@ class Algorithm:
 ALGORITHMS: dict[str, Algorithm] = {
     a.name: a
     for a in (
-        Algorithm("phase_estimation", ("amortised", "per-point", "hybrid"), "phase_estimation_and_filter", True),
+        Algorithm("phase_estimation", "phase_estimation_and_filter", True),
         Algorithm(
-            "qsvt", ("amortised", "per-point", "hybrid"), "polynomial", False,
+            "qsvt", "polynomial", False,
             model_label="polynomial p(λ/α)/C", floor_label="λ_lo (polynomial range)",
         ),
     )

@@ -336,27 +336,21 @@ class SimulationPlan:
         }
 
 
-def _resolve(plan: SimulationPlan, requested: str, available: tuple[str, ...] = STRATEGIES) -> SimulationPlan:
+def _resolve(plan: SimulationPlan, requested: str) -> SimulationPlan:
     """``plan`` with its strategy: the requested one, or under "auto" the cheapest by the cost
-    model among those that fit (amortised when none fits: the guard then says what would).
-    ``available``: the strategies implemented for the inversion method."""
+    model among those that fit (amortised when none fits: the guard then says what would)."""
     from dataclasses import replace
 
     if requested != "auto":
-        if requested not in available:
-            raise QgpError(
-                f"[readout] strategy = \"{requested}\" is not available for this [circuit] method; "
-                f"choose one of {available} or \"auto\""
-            )
         return replace(plan, strategy=requested, reason=f"[readout] strategy = \"{requested}\"")
-    cost = {s: plan.estimated_seconds(s) for s in available}
-    fitting = [s for s in available if plan.fits(s)]
+    cost = {s: plan.estimated_seconds(s) for s in STRATEGIES}
+    fitting = [s for s in STRATEGIES if plan.fits(s)]
     if not fitting:
         return replace(plan, strategy="amortised", reason="auto: no strategy fits under the memory cap")
     chosen = min(fitting, key=lambda s: cost[s])
     others = ", ".join(
-        f"{s} {cost[s]:.2g} s" + ("" if s in fitting else " (does not fit)") for s in available if s != chosen
-    ) or "no other strategy implemented for this method"
+        f"{s} {cost[s]:.2g} s" + ("" if s in fitting else " (does not fit)") for s in STRATEGIES if s != chosen
+    )
     return replace(plan, strategy=chosen, reason=f"auto: {chosen}, estimated {cost[chosen]:.2g} s of simulation, against {others} (cost model, qgp.readout.plan)")
 
 
@@ -389,7 +383,7 @@ def simulation_plan(
             "amortised", cap, m, c, block, amortised, per_point, reference, n_test, readout.shots, hybrid,
             requested=readout.strategy,
         )
-        return _resolve(plan, readout.strategy, algorithm_of(circuit).strategies)
+        return _resolve(plan, readout.strategy)
 
     if block_qubits is not None:
         return build(BlockRegister(int(block_qubits)))
