@@ -28,6 +28,8 @@ __all__ = [
     "NoiseSpec",
     "CircuitSettings",
     "ReadoutSettings",
+    "GateNoise",
+    "NoiseMethod",
     "Config",
     "choices",
 ]
@@ -139,6 +141,88 @@ class ReadoutSettings:
     strategy: Strategy = "auto"
     memory_cap_bytes: int | None = None
     engine: Engine = "auto"
+
+
+#: ``[gate_noise] method``: exact density matrix or trajectories of the gate-level circuit, or the
+#: per-block effective model simulated by trajectories (qgp.readout.noise_effective).
+NoiseMethod = Literal["density_matrix", "trajectories", "effective"]
+
+#: Gate names a device runs without error: rz is a frame change in the control software
+#: (common practice in device noise models).
+VIRTUAL_GATES = frozenset({"rz"})
+
+
+def gate_arity(name: str) -> int:
+    """Qubits of a qiskit standard gate named ``name`` (one-line `QgpError` if unknown)."""
+    from qiskit.circuit.library import get_standard_gate_name_mapping
+
+    from qgp.errors import QgpError
+
+    gate = get_standard_gate_name_mapping().get(name)
+    if gate is None:
+        raise QgpError(f"unknown basis gate {name!r}; use qiskit standard gate names such as rz, sx, x, cx")
+    return gate.num_qubits
+
+
+@dataclass(frozen=True)
+class GateNoise:
+    """``[gate_noise]``: depolarising gate errors and read-out flips; checked on construction.
+
+    Parameters
+    ----------
+    two_qubit, one_qubit : float
+        Depolarising parameters λ in [0, 1] after each two-qubit / non-virtual one-qubit gate
+        (ρ → (1 − λ)ρ + λ I/d, Nielsen & Chuang eq. 8.102).
+    readout : float
+        Symmetric read-out flip probability r in [0, 1].
+    basis : tuple of str
+        Gate-level basis the circuits are compiled to; one- and two-qubit gates, one of them two-qubit.
+    method : {"density_matrix", "trajectories", "effective"}
+    trajectories : int
+        Noise samples per circuit for ``trajectories`` and ``effective``, at least 1.
+    seed : int
+        Seed of the transpiler and of the trajectory sampler.
+    """
+
+    two_qubit: float = 0.0
+    one_qubit: float = 0.0
+    readout: float = 0.0
+    basis: tuple[str, ...] = ("rz", "sx", "x", "cx")
+    method: NoiseMethod = "effective"
+    trajectories: int = 1000
+    seed: int = 0
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "basis", tuple(str(b) for b in self.basis))
+        self.check()
+
+    def check(self) -> None:
+        """Raise `QgpError` (one line, naming the fix) for a setting that cannot run."""
+        from qgp.errors import QgpError
+
+        for name in ("two_qubit", "one_qubit", "readout"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0.0 <= float(value) <= 1.0:
+                raise QgpError(
+                    f"gate_noise {name} = {value!r} is outside [0, 1]; give a probability in [0, 1] "
+                    "(qgp keeps depolarising λ ≤ 1 although Aer accepts up to 4^n/(4^n−1))"
+                )
+        arity = {b: gate_arity(b) for b in self.basis}
+        if any(n > 2 for n in arity.values()):
+            raise QgpError(f"gate_noise basis {list(self.basis)} has gates on more than two qubits; use one- and two-qubit gates only")
+        if 2 not in arity.values():
+            raise QgpError(f"gate_noise basis {list(self.basis)} has no two-qubit gate; add one such as 'cx'")
+        if self.method not in choices(NoiseMethod):
+            raise QgpError(f"gate_noise method {self.method!r} is unknown; use one of {list(choices(NoiseMethod))}")
+        if isinstance(self.trajectories, bool) or not isinstance(self.trajectories, int) or self.trajectories < 1:
+            raise QgpError(f"gate_noise trajectories = {self.trajectories!r}; use an integer of at least 1")
+        if isinstance(self.seed, bool) or not isinstance(self.seed, int) or self.seed < 0:
+            raise QgpError(f"gate_noise seed = {self.seed!r}; use a non-negative integer")
+
+    @property
+    def is_ideal(self) -> bool:
+        """True when every probability is zero (the noisy answer is the noiseless one)."""
+        return self.two_qubit == 0 and self.one_qubit == 0 and self.readout == 0
 
 
 @dataclass(frozen=True)

@@ -32,78 +32,15 @@ from __future__ import annotations
 
 import time
 from dataclasses import dataclass
-from typing import Literal
 
 import numpy as np
 from qiskit import QuantumCircuit, transpile
 
 from qgp.errors import QgpError
 from qgp.memory import require_memory, statevector_bytes
+from qgp.settings import VIRTUAL_GATES, GateNoise, gate_arity as _gate_arity
 
-__all__ = ["GateNoise", "ProbabilityResult", "noise_model", "gate_level", "event_probabilities"]
-
-VIRTUAL_GATES = frozenset({"rz"})  # error-free on hardware (frame changes)
-
-
-def _gate_arity(name: str) -> int:
-    from qiskit.circuit.library import get_standard_gate_name_mapping
-
-    gate = get_standard_gate_name_mapping().get(name)
-    if gate is None:
-        raise QgpError(f"unknown basis gate {name!r}; use qiskit standard gate names such as rz, sx, x, cx")
-    return gate.num_qubits
-
-
-@dataclass(frozen=True)
-class GateNoise:
-    """Gate-noise settings; checked on construction (`check`).
-
-    Parameters
-    ----------
-    two_qubit, one_qubit : float
-        Depolarising parameters λ in [0, 1] after each two-qubit / non-virtual one-qubit gate.
-    readout : float
-        Symmetric read-out flip probability r in [0, 1].
-    basis : tuple of str
-        Gate-level basis; must hold a two-qubit gate, and only one- and two-qubit gates.
-    method : {"density_matrix", "trajectories"}
-    trajectories : int
-        Shots (noise samples) for ``method="trajectories"``, at least 1.
-    seed : int
-        Seed of the transpiler and of the trajectory sampler.
-    """
-
-    two_qubit: float = 0.0
-    one_qubit: float = 0.0
-    readout: float = 0.0
-    basis: tuple[str, ...] = ("rz", "sx", "x", "cx")
-    method: Literal["density_matrix", "trajectories"] = "density_matrix"
-    trajectories: int = 1000
-    seed: int = 0
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "basis", tuple(str(b) for b in self.basis))
-        self.check()
-
-    def check(self) -> None:
-        """Raise `QgpError` (one line, naming the fix) for a setting that cannot run."""
-        for name in ("two_qubit", "one_qubit", "readout"):
-            value = getattr(self, name)
-            if not 0.0 <= float(value) <= 1.0:
-                raise QgpError(
-                    f"noise {name} = {value} is outside [0, 1]; give a probability in [0, 1] "
-                    "(qgp keeps depolarising λ ≤ 1 although Aer accepts up to 4^n/(4^n−1))"
-                )
-        arity = {b: _gate_arity(b) for b in self.basis}
-        if any(n > 2 for n in arity.values()):
-            raise QgpError(f"noise basis {list(self.basis)} has gates on more than two qubits; use one- and two-qubit gates only")
-        if 2 not in arity.values():
-            raise QgpError(f"noise basis {list(self.basis)} has no two-qubit gate; add one such as 'cx'")
-        if self.method not in ("density_matrix", "trajectories"):
-            raise QgpError(f"noise method {self.method!r} is unknown; use 'density_matrix' or 'trajectories'")
-        if int(self.trajectories) < 1:
-            raise QgpError(f"noise trajectories = {self.trajectories}; use at least 1")
-
+__all__ = ["GateNoise", "ProbabilityResult", "noise_model", "gate_level", "check_events", "events_from_probabilities", "event_probabilities"]
 
 @dataclass(frozen=True)
 class ProbabilityResult:
@@ -114,12 +51,20 @@ class ProbabilityResult:
     probabilities : tuple of ndarray
         One float array of shape (n_events_i,) per circuit.
     standard_errors : tuple of ndarray
-        Same shapes: std/√N over trajectories (zeros for the density matrix).
+        Same shapes: the trajectory standard error (zeros for the density matrix).
     method : str
     trajectories : int
         Noise samples per circuit (1 for the density matrix).
     seconds : float
         Wall time of the simulation (transpiling excluded).
+    samples : tuple of ndarray
+        Per circuit, shape (N_i, n_events_i): each simulated trajectory's event probabilities
+        (one row for the density matrix), so that SEs of combinations keep their covariances.
+    ideal_weight : tuple of float
+        Per circuit, the exact weight w₀ of the error-free part (``ideal``), 0 when every
+        trajectory is sampled: probabilities = w₀·ideal + (1 − w₀)·mean(samples).
+    ideal : tuple of ndarray
+        Per circuit, the noiseless event probabilities used with ``ideal_weight`` (empty if w₀ = 0).
     """
 
     probabilities: tuple[np.ndarray, ...]
@@ -127,6 +72,20 @@ class ProbabilityResult:
     method: str
     trajectories: int
     seconds: float
+    samples: tuple[np.ndarray, ...] = ()
+    ideal_weight: tuple[float, ...] = ()
+    ideal: tuple[np.ndarray, ...] = ()
+
+    def combination(self, i: int, weights) -> tuple[float, float]:
+        """(Σₑ wₑ Pₑ, its trajectory standard error) for circuit ``i`` — e.g. P₀ − P₁ with
+        weights (1, −1) — with the covariance of the events inside each trajectory kept."""
+        w = np.asarray(weights, dtype=float)
+        rows = self.samples[i] @ w
+        w0 = self.ideal_weight[i] if self.ideal_weight else 0.0
+        ideal = float(self.ideal[i] @ w) if w0 > 0 else 0.0
+        value = w0 * ideal + (1.0 - w0) * float(rows.mean())
+        se = (1.0 - w0) * float(rows.std(ddof=1)) / np.sqrt(rows.size) if rows.size > 1 else 0.0
+        return value, se
 
 
 def noise_model(spec: GateNoise):
@@ -153,7 +112,7 @@ def gate_level(circuit: QuantumCircuit, spec: GateNoise) -> QuantumCircuit:
     return transpile(circuit, basis_gates=list(spec.basis), optimization_level=0, seed_transpiler=int(spec.seed))
 
 
-def _check_events(events: list[dict[int, int]], n_qubits: int) -> list[int]:
+def check_events(events: list[dict[int, int]], n_qubits: int) -> list[int]:
     for event in events:
         for q, v in event.items():
             if not 0 <= int(q) < n_qubits or v not in (0, 1):
@@ -161,7 +120,7 @@ def _check_events(events: list[dict[int, int]], n_qubits: int) -> list[int]:
     return sorted({int(q) for event in events for q in event}) or [0]
 
 
-def _events_from(probs: np.ndarray, saved: list[int], events, readout: float) -> np.ndarray:
+def events_from_probabilities(probs: np.ndarray, saved: list[int], events, readout: float) -> np.ndarray:
     """Event probabilities, shape (N, n_events), from saved probabilities of shape (N, 2^k) over
     the qubits ``saved`` (bit j of an index is qubit ``saved[j]``), after the read-out flips."""
     k = len(saved)
@@ -200,10 +159,13 @@ def event_probabilities(circuits, events, spec: GateNoise, *, cap_bytes: int | N
     """
     from qiskit_aer import AerSimulator
 
+    if spec.method not in ("density_matrix", "trajectories"):
+        raise QgpError(f"gate-level simulation needs method 'density_matrix' or 'trajectories', not {spec.method!r}; "
+                       "the effective model runs in qgp.readout.noise_effective")
     circuits = list(circuits)
     if len(events) != len(circuits):
         raise QgpError(f"got {len(events)} event lists for {len(circuits)} circuits; give one list per circuit")
-    saved = [_check_events(ev, c.num_qubits) for c, ev in zip(circuits, events)]
+    saved = [check_events(ev, c.num_qubits) for c, ev in zip(circuits, events)]
     n_max = max((c.num_qubits for c in circuits), default=0)
     trajectories = spec.method == "trajectories"
     if trajectories:
@@ -226,12 +188,13 @@ def event_probabilities(circuits, events, spec: GateNoise, *, cap_bytes: int | N
     start = time.perf_counter()
     result = sim.run(runs, shots=shots).result() if runs else None
     seconds = time.perf_counter() - start
-    means, errors = [], []
+    means, errors, samples = [], [], []
     for i, (ev, s) in enumerate(zip(events, saved)):
         probs = np.atleast_2d(np.asarray(result.data(i)["probabilities"], dtype=float))
-        per = _events_from(probs, s, ev, float(spec.readout))
+        per = events_from_probabilities(probs, s, ev, float(spec.readout))
         means.append(per.mean(axis=0))
         # One entry means Aer ran the circuit once (nothing noisy): N identical trajectories.
         n = per.shape[0]
         errors.append(per.std(axis=0, ddof=1) / np.sqrt(n) if n > 1 else np.zeros(len(ev)))
-    return ProbabilityResult(tuple(means), tuple(errors), spec.method, shots, seconds)
+        samples.append(per)
+    return ProbabilityResult(tuple(means), tuple(errors), spec.method, shots, seconds, samples=tuple(samples))

@@ -27,10 +27,10 @@ EVENTS = [{0: 0}, {1: 1}, {0: 1, 2: 0}, {3: 1, 1: 0}, {0: 0, 1: 1, 2: 0, 3: 1}, 
 def test_zero_noise_matches_statevector():
     # Source: the noiseless limit (common practice): p = 0 is qiskit's ideal Statevector.
     qc = random_circuit(4, 5, seed=11)
-    res = event_probabilities([qc], [EVENTS], GateNoise())
+    res = event_probabilities([qc], [EVENTS], GateNoise(method="density_matrix"))
     expected = [_statevector_event(qc, e) for e in EVENTS]
     np.testing.assert_allclose(res.probabilities[0], expected, atol=1e-12, rtol=0)
-    assert noise_model(GateNoise()).is_ideal()
+    assert noise_model(GateNoise(method="density_matrix")).is_ideal()
 
 
 @pytest.mark.parametrize("p", [0.0, 0.1, 0.37, 1.0])
@@ -44,7 +44,7 @@ def test_single_cx_depolarising_closed_form(p):
     events = [{0: 0, 1: 0}, {0: 1, 1: 1}, {0: 0, 1: 1}, {0: 1, 1: 0}, {0: 1}, {1: 0}]
     bell = [0.5, 0.5, 0.0, 0.0, 0.5, 0.5]
     mixed = [0.25, 0.25, 0.25, 0.25, 0.5, 0.5]
-    res = event_probabilities([qc], [events], GateNoise(two_qubit=p))
+    res = event_probabilities([qc], [events], GateNoise(method="density_matrix", two_qubit=p))
     closed = (1 - p) * np.array(bell) + p * np.array(mixed)
     np.testing.assert_allclose(res.probabilities[0], closed, atol=1e-12, rtol=0)
 
@@ -54,7 +54,7 @@ def test_single_x_depolarising_closed_form():
     qc = QuantumCircuit(1)
     qc.x(0)
     p = 0.3
-    res = event_probabilities([qc], [[{0: 0}]], GateNoise(one_qubit=p))
+    res = event_probabilities([qc], [[{0: 0}]], GateNoise(method="density_matrix", one_qubit=p))
     assert abs(res.probabilities[0][0] - p / 2) < 1e-12
 
 
@@ -64,7 +64,7 @@ def test_trajectories_within_standard_error_of_density_matrix():
 
     qc = random_circuit(4, 4, seed=5)
     events = EVENTS[:-1] + [{0: 1}, {1: 0, 2: 1}, {3: 0}, {0: 1, 3: 1}]
-    exact = event_probabilities([qc], [events], GateNoise(two_qubit=0.02, one_qubit=0.002))
+    exact = event_probabilities([qc], [events], GateNoise(method="density_matrix", two_qubit=0.02, one_qubit=0.002))
     spec = GateNoise(two_qubit=0.02, one_qubit=0.002, method="trajectories", trajectories=2000, seed=7)
     traj = event_probabilities([qc], [events], spec)
     z = (traj.probabilities[0] - exact.probabilities[0]) / traj.standard_errors[0]
@@ -78,14 +78,14 @@ def test_readout_flip():
     r = 0.07
     qc = QuantumCircuit(1)
     qc.x(0)
-    res = event_probabilities([qc], [[{0: 0}, {0: 1}]], GateNoise(readout=r))
+    res = event_probabilities([qc], [[{0: 0}, {0: 1}]], GateNoise(method="density_matrix", readout=r))
     np.testing.assert_allclose(res.probabilities[0], [r, 1 - r], atol=1e-12, rtol=0)
     # |q2 q1 q0> = |101>: a two-qubit event is the product of per-qubit flip probabilities.
     qc3 = QuantumCircuit(3)
     qc3.x(0)
     qc3.x(2)
     events = [{0: 1, 2: 1}, {0: 0, 1: 0}, {0: 0, 1: 1, 2: 0}]
-    res3 = event_probabilities([qc3], [events], GateNoise(readout=r))
+    res3 = event_probabilities([qc3], [events], GateNoise(method="density_matrix", readout=r))
     expected = [(1 - r) ** 2, r * (1 - r), r**3]
     np.testing.assert_allclose(res3.probabilities[0], expected, atol=1e-12, rtol=0)
     # Trajectories apply the same flips.
@@ -95,17 +95,17 @@ def test_readout_flip():
 
 def test_gate_level_basis():
     # Source: the brief: the gate-level circuit is the one transpiled to the basis at level 0.
-    g = gate_level(random_circuit(3, 3, seed=2), GateNoise())
+    g = gate_level(random_circuit(3, 3, seed=2), GateNoise(method="density_matrix"))
     assert set(g.count_ops()) <= {"rz", "sx", "x", "cx"}
 
 
 @pytest.mark.parametrize(
     "make, fix",
     [
-        (lambda: GateNoise(two_qubit=1.5), "[0, 1]"),
-        (lambda: GateNoise(readout=-0.1), "[0, 1]"),
+        (lambda: GateNoise(method="density_matrix", two_qubit=1.5), "[0, 1]"),
+        (lambda: GateNoise(method="density_matrix", readout=-0.1), "[0, 1]"),
         (lambda: GateNoise(basis=("rz", "sx", "x")), "two-qubit gate"),
-        (lambda: GateNoise(trajectories=0), "at least 1"),
+        (lambda: GateNoise(method="density_matrix", trajectories=0), "at least 1"),
         (lambda: GateNoise(method="mps"), "density_matrix"),
     ],
 )
@@ -121,8 +121,8 @@ def test_bad_circuits_and_cap():
     measured = QuantumCircuit(1, 1)
     measured.measure(0, 0)
     with pytest.raises(QgpError, match="measurement"):
-        event_probabilities([measured], [[{0: 0}]], GateNoise())
+        event_probabilities([measured], [[{0: 0}]], GateNoise(method="density_matrix"))
     with pytest.raises(QgpError, match="memory cap"):
-        event_probabilities([QuantumCircuit(10)], [[{0: 0}]], GateNoise(), cap_bytes=1024)
+        event_probabilities([QuantumCircuit(10)], [[{0: 0}]], GateNoise(method="density_matrix"), cap_bytes=1024)
     with pytest.raises(QgpError, match="values 0 or 1"):
-        event_probabilities([QuantumCircuit(2)], [[{5: 0}]], GateNoise())
+        event_probabilities([QuantumCircuit(2)], [[{5: 0}]], GateNoise(method="density_matrix"))
