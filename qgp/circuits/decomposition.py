@@ -6,6 +6,12 @@ V^{2^j}) opened into one run of n. Each distinct piece (by content digest) is tr
 (`lower_piece`, at `OPTIMIZATION_LEVEL`, ``qubits_initially_zero=False``: pieces run mid-circuit);
 gate counts are exact sums over the runs, and the depth is exact too, composed in max-plus algebra
 from each piece's longest-path matrix. See qgp.circuits.resources for what is counted with it.
+
+Counting (`DecomposedCircuit.gate_counts`, `.depth`) needs only each piece's counts and path
+matrix, looked up in memory, then in the on-disk cache of `qgp.circuits.count_store` (kept between
+processes, keyed by digest, basis, level and qiskit version), and only then transpiled with
+`lower_piece`, which fills both. `lower_piece` and `DecomposedCircuit.lowered` still give the
+transpiled circuits (export, gate-noise simulation).
 """
 
 from __future__ import annotations
@@ -19,6 +25,8 @@ import numpy as np
 from qiskit import transpile
 from qiskit.circuit import ControlledGate, Gate, Instruction, QuantumCircuit
 
+from qgp.circuits import count_store
+from qgp.circuits.count_store import PieceCounts
 from qgp.errors import QgpError
 
 __all__ = [
@@ -29,6 +37,7 @@ __all__ = [
     "DecomposedCircuit",
     "decompose_circuit",
     "lower_piece",
+    "piece_counts",
 ]
 
 #: The transpiler's optimisation level for every count (stated in every output).
@@ -38,6 +47,17 @@ OPTIMIZATION_LEVEL = 0
 # their phase-estimation pieces, and repeated resource calls in one process cost nothing.
 _CACHE: OrderedDict[tuple[str, tuple[str, ...]], LoweredPiece] = OrderedDict()
 _CACHE_SIZE = 64
+# What counting needs of a lowered piece (counts and path matrix, no circuit), by the same key:
+# small, so many more are kept; filled by `lower_piece` and by reads of the disk cache.
+_COUNTS: OrderedDict[tuple[str, tuple[str, ...]], PieceCounts] = OrderedDict()
+_COUNTS_SIZE = 1024
+
+
+def _remember(cache: OrderedDict, key, value, size: int) -> None:
+    cache[key] = value
+    cache.move_to_end(key)
+    if len(cache) > size:
+        cache.popitem(last=False)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -150,6 +170,7 @@ def _longest_paths(qc: QuantumCircuit) -> np.ndarray:
 def lower_piece(piece: Piece, basis: tuple[str, ...]) -> LoweredPiece:
     """Transpile one piece to ``basis`` at `OPTIMIZATION_LEVEL` (cached by content and basis).
 
+    Its counts and path matrix also go to the in-memory and disk caches of `piece_counts`.
     No coupling map is given, so no layout or routing pass runs: the result acts on the piece's
     qubits in order, with no swap inserted and no final permutation (checked).
     """
@@ -180,10 +201,33 @@ def lower_piece(piece: Piece, basis: tuple[str, ...]) -> LoweredPiece:
         depth=int(paths.max()) if paths.size else 0,  # every path starts at depth 0
         paths=paths,
     )
-    _CACHE[cache_key] = lowered
-    if len(_CACHE) > _CACHE_SIZE:
-        _CACHE.popitem(last=False)
+    _remember(_CACHE, cache_key, lowered, _CACHE_SIZE)
+    counted = PieceCounts(counts=lowered.counts, paths=paths)
+    _remember(_COUNTS, cache_key, counted, _COUNTS_SIZE)
+    count_store.store(piece.key, cache_key[1], OPTIMIZATION_LEVEL, counted)
     return lowered
+
+
+def piece_counts(piece: Piece, basis: tuple[str, ...]) -> PieceCounts:
+    """The gate counts and path matrix of one piece in ``basis``, transpiling only on a miss.
+
+    Looked up in memory, then in the disk cache (`qgp.circuits.count_store`), and only then
+    lowered with `lower_piece`, which fills both.
+    """
+    cache_key = (piece.key, tuple(basis))
+    hit = _COUNTS.get(cache_key)
+    if hit is not None:
+        _COUNTS.move_to_end(cache_key)
+        return hit
+    lowered = _CACHE.get(cache_key)
+    if lowered is None:
+        found = count_store.load(piece.key, cache_key[1], OPTIMIZATION_LEVEL, piece.n_qubits)
+        if found is None:
+            lowered = lower_piece(piece, cache_key[1])
+    if lowered is not None:
+        found = PieceCounts(counts=lowered.counts, paths=lowered.paths)
+    _remember(_COUNTS, cache_key, found, _COUNTS_SIZE)
+    return found
 
 
 @dataclass(frozen=True)
@@ -211,23 +255,28 @@ class DecomposedCircuit:
         return out
 
     def lowered(self, basis: tuple[str, ...]) -> dict[str, LoweredPiece]:
+        """Every piece transpiled to ``basis`` (`lower_piece`), circuits included."""
         return {key: lower_piece(piece, basis) for key, piece in self.pieces.items()}
+
+    def counted(self, basis: tuple[str, ...]) -> dict[str, PieceCounts]:
+        """Every piece's counts and path matrix in ``basis`` (`piece_counts`: cached, no circuit)."""
+        return {key: piece_counts(piece, basis) for key, piece in self.pieces.items()}
 
     def gate_counts(self, basis: tuple[str, ...]) -> dict[str, int]:
         """Exact gate counts of the whole circuit in ``basis``: Σ multiplicity × piece counts."""
-        lowered = self.lowered(basis)
+        counted = self.counted(basis)
         total: dict[str, int] = {}
         for key, times in self.multiplicity().items():
-            for name, n in lowered[key].counts.items():
+            for name, n in counted[key].counts.items():
                 total[name] = total.get(name, 0) + times * int(n)
         return {name: total[name] for name in sorted(total)}
 
     def depth(self, basis: tuple[str, ...]) -> int:
         """Exact depth of the whole circuit in ``basis``, composed from the pieces' path matrices."""
-        lowered = self.lowered(basis)
+        counted = self.counted(basis)
         d = np.zeros(self.num_qubits)
         for run in self.runs:
-            paths = lowered[run.key].paths
+            paths = counted[run.key].paths
             idx = np.asarray(run.qubits)
             for _ in range(run.repeat):
                 d[idx] = np.max(d[idx][None, :] + paths, axis=1)
