@@ -31,6 +31,8 @@ from qgp.settings import (
     Strategy,
     Engine,
     Method,
+    GateNoise,
+    NoiseMethod,
     choices,
 )
 
@@ -56,6 +58,7 @@ _SECTIONS: dict[str, tuple[str, ...]] = {
         "degree",
     ),
     "readout": ("shots", "seed", "strategy", "memory_cap_gib", "engine"),
+    "gate_noise": ("two_qubit", "one_qubit", "readout", "basis", "method", "trajectories", "seed"),
 }
 
 
@@ -96,7 +99,8 @@ def parse_config(raw: dict[str, Any], *, base_dir: Path, source: Path | None = N
     noise = _parse_noise(v, raw.get("noise", {}), kernel)
     circuit = _parse_circuit(v, raw.get("circuit", {}))
     readout = _parse_readout(v, raw.get("readout", {}))
-    return Config(data=data, kernel=kernel, noise=noise, circuit=circuit, readout=readout, source=source)
+    gate_noise = _parse_gate_noise(v, raw["gate_noise"]) if "gate_noise" in raw else None
+    return Config(data=data, kernel=kernel, noise=noise, circuit=circuit, readout=readout, gate_noise=gate_noise, source=source)
 
 
 class _Validator:
@@ -314,6 +318,27 @@ def _parse_readout(v: _Validator, t: dict) -> ReadoutSettings:
         memory_cap_bytes=None if cap is None else int(cap * 2**30),
         engine=v.choice(t, "readout", "engine", d.engine, Engine),
     )
+
+
+def _parse_gate_noise(v: _Validator, t: dict) -> GateNoise:
+    """``[gate_noise]``: present means noisy circuits (even with every probability 0)."""
+    d = GateNoise()
+    basis = t.get("basis", list(d.basis))
+    if not isinstance(basis, list) or not basis or not all(isinstance(b, str) and b for b in basis):
+        raise v.fail("gate_noise", "basis", f"must be a list of gate names such as [\"rz\", \"sx\", \"x\", \"cx\"], got {basis!r}")
+    values = dict(
+        two_qubit=v.number(t, "gate_noise", "two_qubit", d.two_qubit, minimum=0.0),
+        one_qubit=v.number(t, "gate_noise", "one_qubit", d.one_qubit, minimum=0.0),
+        readout=v.number(t, "gate_noise", "readout", d.readout, minimum=0.0),
+        basis=tuple(basis),
+        method=v.choice(t, "gate_noise", "method", d.method, NoiseMethod),
+        trajectories=v.integer(t, "gate_noise", "trajectories", d.trajectories, minimum=1, maximum=10**7),
+        seed=v.integer(t, "gate_noise", "seed", d.seed, minimum=0),
+    )
+    try:
+        return GateNoise(**values)
+    except QgpError as exc:
+        raise QgpError(f"{v.where}: {exc}") from None
 
 
 @dataclass(frozen=True)

@@ -234,4 +234,6 @@ class Config:
     noise: NoiseSpec = NoiseSpec()
     circuit: CircuitSettings = CircuitSettings()
     readout: ReadoutSettings = ReadoutSettings()
+    #: ``[gate_noise]``; None (no section) means the noiseless circuits only.
+    gate_noise: GateNoise | None = None
     source: Path | None = None

@@ -41,7 +41,7 @@ def error_budget(stages: list[tuple[str, dict]]) -> dict:
     out["note"] = (
         "ideal 1/λ on the exact spectrum (the exact GP, error 0) → phase-estimation resolution and filtering "
         "with the exact oracle (closed-form filter model) → the chosen oracle (circuit, exact probabilities) "
-        "→ shot noise; each increment is the change in the metric when that imperfection is added"
+        "→ gate noise ([gate_noise], when given: the gate form under depolarising noise) → shot noise; each increment is the change in the metric when that imperfection is added"
     )
     return out
 

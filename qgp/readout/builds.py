@@ -55,34 +55,38 @@ def cached(cache: OrderedDict, key, make):
     return value
 
 
-def inversion_key(A, circuit: CircuitSettings, rotation: str, bounds) -> tuple:
-    return (matrix_key(A), circuit, rotation, tuple(float(b) for b in bounds), SIMULATED_FORM)
+def inversion_key(A, circuit: CircuitSettings, rotation: str, bounds, form: str = SIMULATED_FORM) -> tuple:
+    return (matrix_key(A), circuit, rotation, tuple(float(b) for b in bounds), form)
 
 
-def cached_pair(A, circuit: CircuitSettings, bounds) -> tuple[InversionCircuit, InversionCircuit]:
-    """The ``inverse`` and ``inverse_sqrt`` circuits, built once around one shared phase oracle."""
+def cached_pair(
+    A, circuit: CircuitSettings, bounds, form: str = SIMULATED_FORM
+) -> tuple[InversionCircuit, InversionCircuit]:
+    """The ``inverse`` and ``inverse_sqrt`` circuits, built once around one shared phase oracle
+    (``form="gate"``: the gate form a device would run, which gate noise acts on)."""
 
     def make():
-        inv = build_inversion(A, circuit, "inverse", bounds, form=SIMULATED_FORM)
-        inv_sqrt = build_inversion(A, circuit, "inverse_sqrt", bounds, form=SIMULATED_FORM, oracle=inv.oracle)
+        inv = build_inversion(A, circuit, "inverse", bounds, form=form)
+        inv_sqrt = build_inversion(A, circuit, "inverse_sqrt", bounds, form=form, oracle=inv.oracle)
         return inv, inv_sqrt
 
-    return cached(_INVERSIONS, inversion_key(A, circuit, "pair", bounds), make)
+    return cached(_INVERSIONS, inversion_key(A, circuit, "pair", bounds, form), make)
 
 
-def qpe_body(A, circuit: CircuitSettings, bounds, inv: InversionCircuit):
-    """The phase-estimation body of ``inv`` (same oracle and block encoding), for per-point
-    circuits; None for a method without phase estimation (its Hadamard test is built from ``inv``)."""
+def qpe_body(A, circuit: CircuitSettings, bounds, inv: InversionCircuit, form: str = SIMULATED_FORM):
+    """The phase-estimation body of ``inv`` (same oracle and block encoding, in ``inv``'s
+    ``form``), for per-point circuits; None for a method without phase estimation (its Hadamard
+    test is built from ``inv``)."""
     if not algorithm_of(circuit).uses_clock:
         return None
 
     def make():
         oracle = inv.oracle
         if oracle is None:
-            oracle = phase_oracle(A, circuit, bounds[1], form=SIMULATED_FORM, block_encoding=inv.block_encoding)
+            oracle = phase_oracle(A, circuit, bounds[1], form=form, block_encoding=inv.block_encoding)
         return phase_estimation_circuit(oracle)
 
-    return cached(_QPE_BODIES, inversion_key(A, circuit, "qpe", bounds), make)
+    return cached(_QPE_BODIES, inversion_key(A, circuit, "qpe", bounds, form), make)
 
 
 def with_preparation(inv: InversionCircuit, vector: np.ndarray) -> InversionCircuit:

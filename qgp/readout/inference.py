@@ -18,7 +18,7 @@ import math
 import sys
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -29,13 +29,20 @@ from qgp.classical.problem import Problem
 from qgp.classical.system import eigenvalue_bounds
 from qgp.readout.budget import budget_stage, error_budget, max_abs, rel_rmse, shots_needed
 from qgp.readout.builds import SIMULATED_FORM, cached_pair, clear_caches
-from qgp.readout.estimators import CircuitOperators, hadamard_probabilities, variance_probabilities
+from qgp.readout.estimators import (
+    CircuitOperators,
+    hadamard_probabilities,
+    sample_hadamard,
+    sample_variance,
+    variance_probabilities,
+)
 from qgp.readout.filter_model import model_operator
+from qgp.readout.noisy_outcomes import NoisyOutcomes, noisy_outcomes
 from qgp.readout.plan import SimulationPlan, check_clock_qubits, simulation_plan
 from qgp.readout.simulate import default_memory_cap, engine_scope, engines_used
 from qgp.readout.strategies import STRATEGIES, Outcomes, StrategyInputs
 from qgp.readout.summary import check_summary
-from qgp.settings import CircuitSettings, ReadoutSettings
+from qgp.settings import CircuitSettings, GateNoise, ReadoutSettings
 
 __all__ = [
     "InferenceResult",
@@ -96,6 +103,18 @@ class InferenceResult:
     #: ``columns_per_run`` (reference-register columns per run, None without one) and
     #: ``from_cache`` (True: made by an earlier call with the same circuits, none in this one).
     simulation_runs: tuple = ()
+    #: ``[gate_noise]`` (None: noiseless). With it, ``mean_quantum``/``variance_quantum`` are the
+    #: noisy answers (with shots on top when ``readout.shots`` > 0), ``*_quantum_se`` combine the
+    #: trajectory and shot standard errors (kept apart in ``*_trajectory_se``/``*_shot_se``) and
+    #: ``mean_noiseless``/``variance_noiseless`` are the noiseless circuits' exact answers.
+    gate_noise: GateNoise | None = None
+    noisy: NoisyOutcomes | None = None
+    mean_noiseless: np.ndarray | None = None
+    variance_noiseless: np.ndarray | None = None
+    mean_trajectory_se: np.ndarray | None = None
+    variance_trajectory_se: np.ndarray | None = None
+    mean_shot_se: np.ndarray | None = None
+    variance_shot_se: np.ndarray | None = None
 
     @property
     def qubits(self) -> dict[str, int]:
@@ -179,6 +198,8 @@ class InferenceResult:
             "timings": self.timings,
             "simulation_runs": [dict(r) for r in self.simulation_runs],
         }
+        if self.gate_noise is not None:
+            out["gate_noise"] = self._gate_noise_summary()
         if p.y_test is not None:
             noise = p.noise_variance
             out["test_rmse"] = {"exact": rmse(p.y_test, self.mean_exact), "quantum": rmse(p.y_test, self.mean_quantum)}
@@ -190,6 +211,40 @@ class InferenceResult:
             }
         check_summary(out, stage="inference")
         return out
+
+
+    def _gate_noise_summary(self) -> dict:
+        g, noisy = self.gate_noise, self.noisy
+        circuits = 2 * self.problem.n_test
+        counts = noisy.gate_counts
+        w0 = noisy.no_error_probability
+        return {
+            "two_qubit": float(g.two_qubit),
+            "one_qubit": float(g.one_qubit),
+            "readout": float(g.readout),
+            "basis": list(g.basis),
+            "method": g.method,
+            "trajectories": int(noisy.trajectories),
+            "seed": int(g.seed),
+            "mean_max_abs_error_noiseless": max_abs(self.mean_noiseless - self.mean_exact),
+            "variance_max_abs_error_noiseless": max_abs(self.variance_noiseless - self.variance_exact),
+            "mean_trajectory_se_max": max_abs(self.mean_trajectory_se),
+            "variance_trajectory_se_max": max_abs(self.variance_trajectory_se),
+            "two_qubit_gates_mean_circuit": counts["mean_circuit"]["two_qubit"],
+            "two_qubit_gates_variance_circuit": counts["variance_circuit"]["two_qubit"],
+            "one_qubit_gates_mean_circuit": counts["mean_circuit"]["one_qubit"],
+            "success_probability_min": float(np.min(noisy.p0 + noisy.p1)),
+            "success_probability_variance_min": float(np.min(noisy.p_flag)),
+            "no_error_probability_min": None if w0 is None else w0["mean_circuit_min"],
+            "qubits": int(noisy.qubits),
+            "seconds": float(noisy.seconds),
+            "seconds_per_trajectory": (
+                None if g.method == "density_matrix" else float(noisy.seconds) / (circuits * noisy.trajectories)
+            ),
+            "note": "noise acts on the gate form (basis above, optimisation level 0); mean_quantum and "
+            "variance_quantum are the noisy answers; 'effective' is the per-block model, whose error "
+            "against the gate-level runs is measured in experiments/noise_calibration.py",
+        }
 
 
 def _poly(inv: InversionCircuit, attr: str):
@@ -283,7 +338,7 @@ def _estimates_with_shots(inp: StrategyInputs, out: Outcomes, y_norm: float, k_n
     return exact, (est, int(np.sum(readout.shots - n0 - n1)))
 
 
-def _budget(inp: StrategyInputs, out: Outcomes, exact_gp, quantum, sampled, y_norm, k_norms) -> dict:
+def _budget(inp: StrategyInputs, out: Outcomes, exact_gp, quantum, sampled, y_norm, k_norms, noisy=None) -> dict:
     """Error budget: exact GP → the reference oracle's phase estimation and filtering (closed-form
     model, qgp.circuits.methods.BUDGET_REFERENCE; needs only the clock grid's constants, not a
     circuit) → the chosen oracle → shots."""
@@ -301,9 +356,49 @@ def _budget(inp: StrategyInputs, out: Outcomes, exact_gp, quantum, sampled, y_no
         (algorithm.budget_stage, budget_stage(mean_model, var_model, mean_exact, var_exact)),
         ("oracle", budget_stage(quantum[0], quantum[1], mean_exact, var_exact)),
     ]
+    if noisy is not None:
+        stages.append(("gate_noise", budget_stage(noisy[0], noisy[1], mean_exact, var_exact)))
     if sampled is not None:
         stages.append(("shots", budget_stage(sampled[0].mean, sampled[0].variance, mean_exact, var_exact)))
     return error_budget(stages)
+
+
+def _noisy_answers(inp: StrategyInputs, noisy: NoisyOutcomes, y_norm: float, k_norms: np.ndarray):
+    """(mean, latent variance, their trajectory SEs) from the noisy probabilities, shapes (n_test,)."""
+    problem = inp.problem
+    mean, var, _ = _estimates(
+        problem, noisy.p0, noisy.p1, noisy.p_flag, noisy.p_flag, y_norm, k_norms, inp.inverse, inp.inverse_sqrt
+    )
+    mean_se = y_norm * k_norms * noisy.d_se / inp.inverse.scale
+    var_se = k_norms**2 * noisy.p_flag_se / inp.inverse_sqrt.scale
+    return mean, var, mean_se, var_se
+
+
+def _noisy_shots(inp: StrategyInputs, noisy: NoisyOutcomes, say: Progress):
+    """Shots drawn by numpy from the noisy probabilities (one generator seeded by ``readout.seed``),
+    as `_estimates_with_shots` returns them; None without shots."""
+    shots = inp.readout.shots
+    if shots == 0:
+        return None
+    say(f"sampling {shots} shots per test point from the noisy probabilities (seed {inp.readout.seed})")
+    rng = np.random.default_rng(inp.readout.seed)
+    n0, n1 = sample_hadamard(noisy.p0, noisy.p1, shots, rng)
+    nf = sample_variance(noisy.p_flag, shots, rng)
+    est = _shot_estimates(inp.problem, inp.inverse, inp.inverse_sqrt, n0, n1, nf, shots)
+    return est, int(np.sum(shots - n0 - n1))
+
+
+def _final(mean_q, var_q, est: ShotEstimates | None, noisy_answers):
+    """(mean, variance, mean SE, variance SE) reported: shots over noisy over noiseless answers;
+    trajectory and shot SEs add in quadrature (independent sources)."""
+    if noisy_answers is None:
+        if est is None:
+            return mean_q, var_q, None, None
+        return est.mean, est.variance, est.mean_se, est.variance_se
+    mean_n, var_n, mean_tse, var_tse = noisy_answers
+    if est is None:
+        return mean_n, var_n, mean_tse, var_tse
+    return est.mean, est.variance, np.hypot(est.mean_se, mean_tse), np.hypot(est.variance_se, var_tse)
 
 
 def _model_difference(inp: StrategyInputs, out: Outcomes) -> float | None:
@@ -321,6 +416,7 @@ def infer(
     circuit: CircuitSettings = CircuitSettings(),
     readout: ReadoutSettings = ReadoutSettings(),
     *,
+    gate_noise: GateNoise | None = None,
     progress: Progress | None = _stderr_progress,
 ) -> InferenceResult:
     """Estimate the predictive mean and latent variance at ``problem.X_test`` with the circuits.
@@ -334,6 +430,9 @@ def infer(
         The regularised system, training targets and test points (qgp.classical.problem).
     circuit, readout : CircuitSettings, ReadoutSettings
         The inversion circuit and how it is read out.
+    gate_noise : GateNoise, optional
+        ``[gate_noise]``: also simulate every test point's gate-form circuits under depolarising
+        gate noise and read-out flips (qgp.readout.noisy_outcomes); the answers are then the noisy ones.
     progress : callable, optional
         Receives one message per stage (default: stderr; None for silence).
 
@@ -374,13 +473,24 @@ def infer(
     t0 = time.perf_counter()
     exact = problem.exact.predict(problem.X_test)
     mean_exact, var_exact = exact.mean, exact.variance_latent
+    noiseless_inp = inp if gate_noise is None else replace(inp, readout=replace(readout, shots=0))
     with engine_scope(readout.engine) as used_for_shots:
-        (mean_q, var_q, var_had), sampled = _estimates_with_shots(inp, out, y_norm, k_norms, say)
+        (mean_q, var_q, var_had), sampled = _estimates_with_shots(noiseless_inp, out, y_norm, k_norms, say)
     used = used + used_for_shots + ([out.operators.engine] if out.operators is not None and not used else [])
-    budget = _budget(inp, out, (mean_exact, var_exact), (mean_q, var_q), sampled, y_norm, k_norms)
+    noisy = noisy_answers = None
+    if gate_noise is not None:
+        t_noise = time.perf_counter()
+        with engine_scope(readout.engine) as used_for_noise:
+            noisy = noisy_outcomes(inp, gate_noise, out, say)
+        used = used + used_for_noise
+        timings["gate_noise"] = time.perf_counter() - t_noise
+        noisy_answers = _noisy_answers(inp, noisy, y_norm, k_norms)
+        sampled = _noisy_shots(inp, noisy, say)
+    budget = _budget(inp, out, (mean_exact, var_exact), (mean_q, var_q), sampled, y_norm, k_norms, noisy_answers)
     needed = shots_needed(problem, out.p0, out.p1, out.p_flag, y_norm, k_norms, inv, inv_sqrt, mean_exact, var_exact)
     est, failures = sampled if sampled is not None else (None, None)
-    timings["post_process"] = time.perf_counter() - t0
+    final_mean, final_var, mean_se, var_se = _final(mean_q, var_q, est, noisy_answers)
+    timings["post_process"] = time.perf_counter() - t0 - timings.get("gate_noise", 0.0)
     return InferenceResult(
         problem=problem,
         circuit=circuit,
@@ -389,11 +499,11 @@ def infer(
         inverse_sqrt=inv_sqrt,
         mean_exact=mean_exact,
         variance_exact=var_exact,
-        mean_quantum=est.mean if est is not None else mean_q,
-        variance_quantum=est.variance if est is not None else var_q,
+        mean_quantum=final_mean,
+        variance_quantum=final_var,
         variance_quantum_hadamard=var_had,
-        mean_quantum_se=est.mean_se if est is not None else None,
-        variance_quantum_se=est.variance_se if est is not None else None,
+        mean_quantum_se=mean_se,
+        variance_quantum_se=var_se,
         p0=out.p0,
         p1=out.p1,
         p_flag=out.p_flag,
@@ -409,4 +519,12 @@ def infer(
         elapsed_seconds=time.perf_counter() - t_start,
         timings=timings,
         simulation_runs=out.runs,
+        gate_noise=gate_noise,
+        noisy=noisy,
+        mean_noiseless=None if noisy is None else mean_q,
+        variance_noiseless=None if noisy is None else var_q,
+        mean_trajectory_se=None if noisy is None else noisy_answers[2],
+        variance_trajectory_se=None if noisy is None else noisy_answers[3],
+        mean_shot_se=None if est is None else est.mean_se,
+        variance_shot_se=None if est is None else est.variance_se,
     )

@@ -1,8 +1,9 @@
 """Gate noise: how depolarising gate errors and read-out flips change qgp's event probabilities.
 
 Noise acts on the gate-level circuit a device would run: each measurement-free circuit is
-transpiled to ``GateNoise.basis`` (default ``rz, sx, x, cx``) at optimisation level 0 (where qgp
-counts its resources), then simulated by qiskit-aer with a `NoiseModel`:
+lowered to ``GateNoise.basis`` (default ``rz, sx, x, cx``) piece by piece at optimisation level 0
+(`gate_level`: exactly where qgp counts its resources and what `qgp export` writes), then
+simulated by qiskit-aer with a `NoiseModel`:
 
 * ``depolarizing_error(one_qubit, 1)`` after every one-qubit basis gate except ``rz``: ``rz`` is
   virtual (a frame change in the control software) and error-free on hardware — common practice
@@ -34,7 +35,9 @@ import time
 from dataclasses import dataclass
 
 import numpy as np
-from qiskit import QuantumCircuit, transpile
+from qiskit import QuantumCircuit
+
+from qgp.circuits.decomposition import decompose_circuit, lower_piece
 
 from qgp.errors import QgpError
 from qgp.memory import require_memory, statevector_bytes
@@ -106,10 +109,21 @@ def noise_model(spec: GateNoise):
 
 
 def gate_level(circuit: QuantumCircuit, spec: GateNoise) -> QuantumCircuit:
-    """``circuit`` transpiled to ``spec.basis`` at optimisation level 0 (seed ``spec.seed``)."""
+    """``circuit`` in ``spec.basis``, piece by piece: the gate-level circuit whose counts qgp reports.
+
+    Each top-level piece is lowered once (`qgp.circuits.decomposition.lower_piece`, optimisation
+    level 0, cached by content) and the lowered pieces are composed in order, repetitions written
+    out — the same lowering `qgp export` writes, so the noise acts on the exported circuit.
+    """
     if any(inst.operation.name == "measure" for inst in circuit.data) or circuit.num_clbits:
         raise QgpError(f"circuit {circuit.name!r} has measurements or classical bits; pass the measurement-free circuit")
-    return transpile(circuit, basis_gates=list(spec.basis), optimization_level=0, seed_transpiler=int(spec.seed))
+    dec = decompose_circuit(circuit)
+    out = QuantumCircuit(*circuit.qregs, name=circuit.name, global_phase=dec.global_phase)
+    for run in dec.runs:
+        lowered = lower_piece(dec.pieces[run.key], tuple(spec.basis)).circuit
+        for _ in range(run.repeat):
+            out.compose(lowered, qubits=list(run.qubits), inplace=True)
+    return out
 
 
 def check_events(events: list[dict[int, int]], n_qubits: int) -> list[int]:

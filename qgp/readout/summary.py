@@ -91,6 +91,7 @@ def _k(path: str, kind: Kind, doc: str, **kw) -> SummaryKey:
 
 
 _TESTS = "the config gives test targets ([data] test with a target column)"
+_NOISE = "the config has a [gate_noise] section"
 
 #: Every key of summary.json, in the document's order. Leaves of a record follow the record.
 SUMMARY_KEYS: tuple[SummaryKey, ...] = (
@@ -165,6 +166,44 @@ SUMMARY_KEYS: tuple[SummaryKey, ...] = (
     _k("elapsed_seconds", "float", "wall time of the inference (measured)"),
     _k("timings", "record", "wall time per phase (measured)"),
     _k("simulation_runs", "list", "the simulator runs behind the numbers"),
+    _k("gate_noise", "record", "the answers under gate noise: settings, noiseless floor, gate counts, cost",
+       optional=True, when=_NOISE, table_skip=frozenset({"note", "basis"})),
+    _k("gate_noise.two_qubit", "float", "depolarising λ after each two-qubit gate", column="gate_noise_two_qubit",
+       optional=True, when=_NOISE),
+    _k("gate_noise.one_qubit", "float", "depolarising λ after each non-virtual one-qubit gate",
+       column="gate_noise_one_qubit", optional=True, when=_NOISE),
+    _k("gate_noise.readout", "float", "read-out flip probability", column="gate_noise_readout", optional=True,
+       when=_NOISE),
+    _k("gate_noise.basis", "list", "gate basis the circuits are compiled to", optional=True, when=_NOISE),
+    _k("gate_noise.method", "str", "density_matrix, trajectories or effective", column="gate_noise_method",
+       optional=True, when=_NOISE),
+    _k("gate_noise.trajectories", "int", "noise samples per circuit (1: density matrix)", optional=True, when=_NOISE),
+    _k("gate_noise.seed", "int", "seed of the noise sampler and transpiler", optional=True, when=_NOISE),
+    _k("gate_noise.mean_max_abs_error_noiseless", "float", "the noiseless circuits' max |mean error| (the floor)",
+       column="mean_max_abs_error_noiseless", optional=True, when=_NOISE),
+    _k("gate_noise.variance_max_abs_error_noiseless", "float", "the noiseless circuits' max |variance error|",
+       column="variance_max_abs_error_noiseless", optional=True, when=_NOISE),
+    _k("gate_noise.mean_trajectory_se_max", "float", "largest trajectory SE of a noisy mean (0: density matrix)",
+       column="mean_trajectory_se_max", optional=True, when=_NOISE),
+    _k("gate_noise.variance_trajectory_se_max", "float", "largest trajectory SE of a noisy variance",
+       column="variance_trajectory_se_max", optional=True, when=_NOISE),
+    _k("gate_noise.two_qubit_gates_mean_circuit", "int", "two-qubit gates of test point 0's Hadamard-test circuit "
+       "in the basis", column="two_qubit_gates_mean_circuit", optional=True, when=_NOISE),
+    _k("gate_noise.two_qubit_gates_variance_circuit", "int", "two-qubit gates of test point 0's variance circuit",
+       column="two_qubit_gates_variance_circuit", optional=True, when=_NOISE),
+    _k("gate_noise.one_qubit_gates_mean_circuit", "int", "noisy one-qubit gates of that Hadamard-test circuit",
+       optional=True, when=_NOISE),
+    _k("gate_noise.success_probability_min", "float", "least noisy Hadamard-test success probability",
+       column="noisy_success_probability_min", optional=True, when=_NOISE),
+    _k("gate_noise.success_probability_variance_min", "float", "least noisy P(flag = 1) of the variance circuit",
+       optional=True, when=_NOISE),
+    _k("gate_noise.no_error_probability_min", "float", "effective model: least exact probability that no block errs "
+       "(null for the gate-level methods)", optional=True, when=_NOISE, nullable=True),
+    _k("gate_noise.qubits", "int", "widest noisy circuit (the Hadamard test)", optional=True, when=_NOISE),
+    _k("gate_noise.seconds", "float", "wall time of the noisy simulation (measured)", optional=True, when=_NOISE),
+    _k("gate_noise.seconds_per_trajectory", "float", "seconds per circuit per trajectory (null: density matrix)",
+       optional=True, when=_NOISE, nullable=True),
+    _k("gate_noise.note", "str", "what the noisy numbers are", optional=True, when=_NOISE, table=False),
     _k("test_rmse", "record", "RMSE of the means against test targets", optional=True, when=_TESTS),
     _k("test_rmse.exact", "float", "exact GP", column="test_rmse_exact", optional=True, when=_TESTS),
     _k("test_rmse.quantum", "float", "quantum estimate", column="test_rmse_quantum", optional=True, when=_TESTS),

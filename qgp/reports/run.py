@@ -35,8 +35,13 @@ predictions.csv — one row per test point, in the test file's order.
 
 Columns: the input columns, then
   mean_exact, variance_exact        exact GP predictive mean and LATENT variance (of f, not of y)
-  mean_quantum, variance_quantum    the circuits' estimates (latent variance from the 1/sqrt(lambda) circuit)
-  mean_quantum_se, variance_quantum_se   standard errors from the shot counts (only when shots > 0)
+  mean_quantum, variance_quantum    the circuits' estimates (latent variance from the 1/sqrt(lambda) circuit);
+                                    with [gate_noise], the noisy estimates
+  mean_quantum_se, variance_quantum_se   standard errors (only with shots > 0 or [gate_noise]): from the shot
+                                    counts, and with [gate_noise] the trajectory SE added in quadrature
+  mean_noiseless, variance_noiseless     (only with [gate_noise]) the noiseless circuits' exact estimates
+  mean_trajectory_se, variance_trajectory_se   (only with [gate_noise]) the noise-sampling SE alone
+                                    (0 for the exact density matrix)
   variance_quantum_hadamard         latent variance from a Hadamard test with k* on both sides
   variance_quantum_negative         1 where the quantum latent variance came out <= 0 (reported as computed, never clipped)
   success_probability               P(Hadamard-test run lands in flag=1, clock=0, block=0)
@@ -52,8 +57,10 @@ The prior mean (summary.json: prior_mean) was subtracted before inference and ad
 
 def prediction_columns(result: InferenceResult) -> list[str]:
     cols = list(result.problem.inputs) + list(PREDICTION_COLUMNS)
-    if result.readout.shots > 0:
+    if result.mean_quantum_se is not None:
         cols += ["mean_quantum_se", "variance_quantum_se"]
+    if result.gate_noise is not None:
+        cols += ["mean_noiseless", "variance_noiseless", "mean_trajectory_se", "variance_trajectory_se"]
     cols += ["variance_quantum_hadamard", "variance_quantum_negative", "success_probability", "success_probability_variance"]
     if result.problem.y_test is not None:
         cols.append("target")
@@ -68,8 +75,10 @@ def write_predictions(result: InferenceResult, path: Path) -> None:
     p = result.problem
     columns = [p.X_test[:, i] for i in range(p.X_test.shape[1])]
     columns += [result.mean_exact, result.variance_exact, result.mean_quantum, result.variance_quantum]
-    if result.readout.shots > 0:
+    if result.mean_quantum_se is not None:
         columns += [result.mean_quantum_se, result.variance_quantum_se]
+    if result.gate_noise is not None:
+        columns += [result.mean_noiseless, result.variance_noiseless, result.mean_trajectory_se, result.variance_trajectory_se]
     columns += [
         result.variance_quantum_hadamard,
         (result.variance_quantum <= 0).astype(int),
@@ -186,6 +195,21 @@ def provenance(result: InferenceResult) -> dict[str, str]:
         f"stage {algorithm.budget_stage}: {model}; stage oracle: "
         "the simulated circuits' exact probabilities; stage shots: the sampled estimates"
     )
+    if result.gate_noise is not None:
+        g = result.gate_noise
+        how = (
+            "the per-block effective model (qgp.readout.noise_effective): each top-level piece of the gate form "
+            "followed by a depolarising channel on its qubits with λ = 1 − Π(1 − p_g) over its gates, sampled by "
+            "trajectories (error-free part weighted exactly)"
+            if g.method == "effective"
+            else f"Aer's {g.method.replace('_', ' ')} simulation of the gate-level circuits transpiled to "
+            f"{list(g.basis)} with a NoiseModel (depolarising_error, ReadoutError)"
+        )
+        out["gate_noise"] = (
+            f"one Hadamard-test and one variance circuit per test point in the gate form, under {how}; "
+            "mean_quantum and variance_quantum are these noisy answers"
+        )
+        out["error_budget"] += "; stage gate_noise: the noisy answers without shots"
     out["mean_exact"] = out["variance_exact"] = "the exact GP in numpy/scipy (Cholesky; Rasmussen & Williams Alg. 2.1)"
     return out
 
@@ -242,7 +266,7 @@ def run_config(
     outputs = run_outputs() if figures else tuple(f for f in run_outputs() if not f.startswith(FIGURES_DIR + "/"))
     out = check_outputs(out, outputs, force=overwrite, inputs=config_inputs(cfg))
     problem = problem_from_config(cfg)
-    result = infer(problem, cfg.circuit, cfg.readout, progress=None if quiet else _progress)
+    result = infer(problem, cfg.circuit, cfg.readout, gate_noise=cfg.gate_noise, progress=None if quiet else _progress)
     out.mkdir(parents=True, exist_ok=True)
     write_predictions(result, out / PREDICTIONS_FILE)
     if figures:

@@ -66,7 +66,7 @@ def compute_point(task: Mapping[str, Any]) -> dict[str, Any]:
         from qgp.classical.problem import problem_from_config
 
         cfg = parse_config(config, base_dir=Path.cwd(), source=None)
-        result = infer(problem_from_config(cfg), cfg.circuit, cfg.readout, progress=None)
+        result = infer(problem_from_config(cfg), cfg.circuit, cfg.readout, gate_noise=cfg.gate_noise, progress=None)
         summary = summary_document(result, cfg)
         table = summary.get("config", {}).get("data", {})
         for key in _PATH_KEYS:  # the user's file names, not the snapshot copies

@@ -67,10 +67,14 @@ def test_trajectories_within_standard_error_of_density_matrix():
     exact = event_probabilities([qc], [events], GateNoise(method="density_matrix", two_qubit=0.02, one_qubit=0.002))
     spec = GateNoise(two_qubit=0.02, one_qubit=0.002, method="trajectories", trajectories=2000, seed=7)
     traj = event_probabilities([qc], [events], spec)
-    z = (traj.probabilities[0] - exact.probabilities[0]) / traj.standard_errors[0]
-    assert np.all(traj.standard_errors[0] > 0)
+    # The normal approximation needs N·p ≫ 1 (common practice: N·p ≥ 10); an event that only noise
+    # reaches (here one at p ≈ 1e-4, ~0.3 expected contributing trajectories) is left out.
+    ok = exact.probabilities[0] * spec.trajectories >= 10
+    assert ok.sum() >= 8
+    z = (traj.probabilities[0][ok] - exact.probabilities[0][ok]) / traj.standard_errors[0][ok]
+    assert np.all(traj.standard_errors[0][ok] > 0)
     assert np.all(np.abs(z) < 4), z
-    assert np.sum(z**2) < chi2.ppf(0.999, len(events))
+    assert np.sum(z**2) < chi2.ppf(0.999, int(ok.sum()))
 
 
 def test_readout_flip():

@@ -25,6 +25,7 @@ from qgp.readout.summary import (
     table_leaves,
 )
 from qgp.reports.run import summary_document
+from qgp.settings import GateNoise
 from qgp.sweeps.store import SUMMARY_COLUMNS
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -32,10 +33,15 @@ ROOT = Path(__file__).resolve().parents[2]
 
 @pytest.fixture(scope="module")
 def documents():
-    """Summary documents of the demo config with and without test targets, with and without shots."""
+    """Summary documents of the demo config with and without test targets, with and without shots, and
+    one with gate noise."""
     cfg = load_config(demo_config_path())
     small = replace(cfg, data=replace(cfg.data, n_train=4), circuit=replace(cfg.circuit, clock_qubits=3))
     out = []
+    # First: test targets, shots and [gate_noise] (the effective model, few trajectories): every column.
+    noisy = replace(small, readout=replace(small.readout, shots=64), gate_noise=GateNoise(two_qubit=1e-3, trajectories=4))
+    result = infer(problem_from_config(noisy), noisy.circuit, noisy.readout, gate_noise=noisy.gate_noise, progress=None)
+    out.append((result.summary(), summary_document(result, noisy)))
     for test in (cfg.data.test, None):
         for shots in (0, 64):
             c = replace(small, data=replace(small.data, test=test), readout=replace(small.readout, shots=shots))
