@@ -44,16 +44,20 @@ array of integers in [0, 4) — the Pauli on each block qubit (0 = I, 1 = X, 2 =
 order and each block's qubits in run order, used only where the block errs. Circuits with
 negligible 1 − w₀ draw nothing.
 
-Simulation: each trajectory is the circuit rebuilt with each run as one dense `UnitaryGate` (the
-piece's `Operator` to the power ``repeat``, cached per (piece, repeat); pieces above
-`MAX_BLOCK_QUBITS` qubits are refused) and the sampled Pauli gates right after the erring
-blocks; global phases are dropped (they do not change probabilities). Circuits run in batches of
-`BATCH` through `qgp.readout.simulate.run_statevectors` (numpy engine or Aer), each state reduced
-at once to its marginal over the event qubits; read-out flips are applied to those marginals by
-`qgp.readout.noise.events_from_probabilities`, as for the gate-level methods.
+Simulation: each block is one dense matrix (the piece's own matrix, qiskit's `Operator` or Aer's
+unitary simulator, to the power ``repeat``; cached per (piece, repeat); pieces above
+`MAX_BLOCK_QUBITS` qubits are refused) applied to the statevector held as a tensor (one axis per
+qubit, `_apply`), with the sampled Paulis right after the erring blocks. A trajectory starts from
+the noiseless state after its first erring block: the noiseless states after every block are
+computed once per circuit and kept when they fit under the cap. Global phases are dropped (they do
+not change probabilities). Each final state is reduced at once to its marginal over the event
+qubits; read-out flips are applied to those marginals by
+`qgp.readout.noise.events_from_probabilities`, as for the gate-level methods. Trajectories are not
+built as qiskit circuits: a circuit keeps its own copy of each dense gate's matrix (qiskit 2.x) and
+64 trajectory circuits of a 15-qubit Hadamard test held ~1.3 GB (measured).
 
-Sources: Nielsen & Chuang eq. 8.102 (depolarising channel); qiskit 2.x ``Operator``,
-``UnitaryGate``; qgp.readout.noise (read-out flips, `ProbabilityResult`).
+Sources: Nielsen & Chuang eq. 8.102 (depolarising channel); qiskit 2.x ``Operator``; qiskit-aer's
+unitary simulator; qgp.readout.noise (read-out flips, `ProbabilityResult`).
 """
 
 from __future__ import annotations
@@ -63,28 +67,21 @@ from dataclasses import dataclass, field
 
 import numpy as np
 from qiskit import QuantumCircuit
-from qiskit.circuit import CircuitInstruction
-from qiskit.circuit.library import UnitaryGate, XGate, YGate, ZGate
 
 from qgp.circuits.decomposition import DecomposedCircuit, Piece, decompose_circuit, piece_counts
 from qgp.errors import QgpError
-from qgp.memory import require_memory, statevector_bytes
+from qgp.memory import default_memory_cap, require_memory, statevector_bytes
 from qgp.readout.noise import ProbabilityResult, check_events, events_from_probabilities
-from qgp.readout.simulate import run_statevectors
 from qgp.settings import VIRTUAL_GATES, GateNoise, gate_arity
 
-__all__ = ["MAX_BLOCK_QUBITS", "BATCH", "BlockModel", "block_errors", "effective_event_probabilities"]
+__all__ = ["MAX_BLOCK_QUBITS", "BlockModel", "block_errors", "effective_event_probabilities"]
 
 #: Widest piece turned into a dense unitary: 16·4^12 bytes = 256 MiB per distinct (piece, repeat).
 MAX_BLOCK_QUBITS = 12
 
-#: Trajectory circuits built and simulated together: bounds the circuits and reduced states held.
-BATCH = 64
-
 # Below this 1 − w₀ the sampled term cannot move a probability by more than rounding: skip it.
 _NEGLIGIBLE = 1e-15
 
-_PAULI_GATES = (XGate(), YGate(), ZGate())  # codes 1, 2, 3; code 0 is the identity (nothing applied)
 
 
 # ---------------------------------------------------------------------------------------------
@@ -251,23 +248,52 @@ def _marginal(sv: np.ndarray, n: int, saved: list[int]) -> np.ndarray:
     return np.ascontiguousarray(m.transpose([remaining.index(ax) for ax in keep])).reshape(-1)
 
 
-def _block_gates(model: BlockModel, cache: dict[tuple[str, int], UnitaryGate]) -> list[UnitaryGate]:
-    """One `UnitaryGate` per block: the piece's operator to the power ``repeat``, built once per
-    (piece digest, repeat) in ``cache`` — shared by the circuits of one call, which share their
-    phase-estimation pieces — and appended without copying."""
+#: Pieces on at least this many qubits without a matrix of their own are multiplied out by Aer's
+#: unitary simulator: qiskit's `Operator` composes a definition one gate at a time on the whole
+#: 4^k matrix (the 10-qubit flag rotation of an 8-clock-qubit circuit, 1025 gates: 19.5 s, Aer 1.4 s,
+#: equal to 5e-15; measured here).
+AER_UNITARY_QUBITS = 7
+
+
+def _piece_operator(op) -> np.ndarray:
+    """The matrix of one piece (qiskit's qubit order): its own ``to_matrix`` when it has one, else
+    `Operator` for small pieces and Aer's unitary simulator for wide ones."""
+    from qiskit import QuantumCircuit, transpile
+    from qiskit.circuit.exceptions import CircuitError
     from qiskit.quantum_info import Operator
 
+    try:
+        return np.asarray(op.to_matrix(), dtype=complex)
+    except (AttributeError, CircuitError):
+        pass
+    if op.num_qubits < AER_UNITARY_QUBITS:
+        return Operator(op).data
+    from qiskit_aer import AerSimulator
+
+    sim = AerSimulator(method="unitary")
+    qc = QuantumCircuit(op.num_qubits)
+    qc.append(op, range(op.num_qubits))
+    qc = transpile(qc, sim, optimization_level=0)
+    qc.save_unitary()
+    result = sim.run(qc).result()
+    if not result.success:
+        raise QgpError(f"Aer could not multiply out piece {op.name!r}: {result.status}")
+    return np.asarray(result.get_unitary(qc), dtype=complex)
+
+
+def _block_matrices(model: BlockModel, cache: dict[tuple[str, int], np.ndarray]) -> list[np.ndarray]:
+    """One matrix per block: the piece's operator to the power ``repeat``, built once per (piece
+    digest, repeat) in ``cache`` — shared by the circuits of one call, which share their
+    phase-estimation pieces."""
     decomp = model.decomposition
     out = []
     for run in decomp.runs:
         key = (run.key, run.repeat)
         if key not in cache:
-            u = Operator(decomp.pieces[run.key].operation).data
+            u = _piece_operator(decomp.pieces[run.key].operation)
             if run.repeat > 1:
                 u = np.linalg.matrix_power(u, run.repeat)  # repeated squaring: O(log r) products
-            # check_input=False: a power of a unitary is unitary up to rounding, and the check
-            # costs a k-qubit product per gate.
-            cache[key] = UnitaryGate(u, label=decomp.pieces[run.key].name, check_input=False)
+            cache[key] = u
         out.append(cache[key])
     return out
 
@@ -279,29 +305,53 @@ def _unitary_bytes(models: list[BlockModel]) -> int:
     return sum(sizes.values()) + 3 * max(sizes.values(), default=0)
 
 
-def _circuit(n_qubits: int, model: BlockModel, gates, errs=None, paulis=None, offsets=None) -> QuantumCircuit:
-    """The circuit of one trajectory: every block as its unitary, and after each erring block b
-    the Pauli codes ``paulis[offsets[b]:offsets[b] + k_b]`` on its qubits (none when ``errs`` is None).
+def _cap(cap_bytes: int | None) -> int:
+    return default_memory_cap() if cap_bytes is None else int(cap_bytes)
 
-    Built with ``_append`` of ready `CircuitInstruction`s: thousands of small circuits are built
-    per call, and ``append``'s argument broadcasting was a quarter of the run time for 3 qubits."""
-    qc = QuantumCircuit(n_qubits)
-    bits = qc.qubits
-    for b, (gate, qubits) in enumerate(zip(gates, model.qubits)):
-        qc._append(CircuitInstruction(gate, tuple(bits[q] for q in qubits)))
-        if errs is not None and errs[b]:
-            for j, q in enumerate(qubits):
+
+def _apply(state: np.ndarray, u: np.ndarray, qubits: tuple[int, ...]) -> np.ndarray:
+    """``u`` (2^k × 2^k, index bit j = ``qubits[j]``, qiskit's order) applied to an n-qubit state
+    held as a tensor of shape (2,)·n whose axis n−1−q is qubit q; returns a new tensor."""
+    n, k = state.ndim, len(qubits)
+    axes = [n - 1 - q for q in reversed(qubits)]  # u's row/column bits, most significant first
+    out = np.tensordot(u.reshape((2,) * (2 * k)), state, axes=(list(range(k, 2 * k)), axes))
+    return np.moveaxis(out, list(range(k)), axes)
+
+
+#: Codes 1, 2, 3 of the sampled Paulis (code 0, the identity, applies nothing).
+_PAULIS = (None, np.array([[0, 1], [1, 0]], complex), np.array([[0, -1j], [1j, 0]]), np.array([[1, 0], [0, -1]], complex))
+
+
+def _prefix_states(n: int, mats, model: BlockModel, keep: bool) -> list[np.ndarray]:
+    """The noiseless state after each block (``keep``), or only the final one; index 0 is |0…0⟩."""
+    state = np.zeros((2,) * n, dtype=complex)
+    state[(0,) * n] = 1.0
+    out = [state]
+    for u, qubits in zip(mats, model.qubits):
+        state = _apply(state, u, qubits)
+        if keep:
+            out.append(state)
+    return out if keep else [out[0], state]
+
+
+def _trajectory(prefix: list[np.ndarray], mats, model: BlockModel, first: int, errs, paulis, offsets) -> np.ndarray:
+    """Final state of one trajectory: the noiseless state after block ``first`` (``prefix``, or
+    recomputed), then each erring block's sampled Paulis, the blocks after each."""
+    if len(prefix) > 2:
+        state = prefix[first + 1]
+    else:
+        state = prefix[0]
+        for u, qubits in zip(mats[: first + 1], model.qubits[: first + 1]):
+            state = _apply(state, u, qubits)
+    for b in range(first, len(mats)):
+        if b > first:
+            state = _apply(state, mats[b], model.qubits[b])
+        if errs[b]:
+            for j, q in enumerate(model.qubits[b]):
                 code = int(paulis[offsets[b] + j])
                 if code:
-                    qc._append(CircuitInstruction(_PAULI_GATES[code - 1], (bits[q],)))
-    return qc
-
-
-def _simulate(circuits: list[QuantumCircuit], saved: list[int], cap: int | None) -> np.ndarray:
-    """Marginals over ``saved`` of each circuit's final state, shape (len(circuits), 2^k)."""
-    n = circuits[0].num_qubits
-    rows = run_statevectors(circuits, cap=cap, reduce=lambda i, sv: _marginal(np.asarray(sv), n, saved))
-    return np.array(rows, dtype=float).reshape(len(circuits), 1 << len(saved))
+                    state = _apply(state, _PAULIS[code], (q,))
+    return state
 
 
 def _check_pieces(decomp: DecomposedCircuit, name: str) -> None:
@@ -370,10 +420,10 @@ def effective_event_probabilities(
     for c, d in zip(circuits, decomps):
         _check_pieces(d, c.name)
     n_traj = int(spec.trajectories)
-    batch = min(BATCH, n_traj)
     for c, s, ev in zip(circuits, saved, events):
         require_memory(
-            statevector_bytes(c.num_qubits) + 8 * (batch + n_traj) * (1 << len(s)) + 8 * n_traj * len(ev),
+            # the state, tensordot's output and the prefix's first and last states; the marginals
+            4 * statevector_bytes(c.num_qubits) + 8 * n_traj * (1 << len(s)) + 8 * n_traj * len(ev),
             f"an effective-noise trajectory of '{c.name}' on {c.num_qubits} qubits",
             cap_bytes,
         )
@@ -386,16 +436,20 @@ def effective_event_probabilities(
     )
 
     rng = np.random.default_rng(int(spec.seed))
-    cache: dict[tuple[str, int], UnitaryGate] = {}
+    cache: dict[tuple[str, int], np.ndarray] = {}
     start = time.perf_counter()
     means, errors, samples, weights, ideals = [], [], [], [], []
     for i, (c, m, s, ev) in enumerate(zip(circuits, models, saved, events)):
         n = c.num_qubits
-        gates = _block_gates(m, cache)
+        mats = _block_matrices(m, cache)
+        # The noiseless state after every block is shared by the trajectories whose first error
+        # comes later: kept when it fits under the cap (else each trajectory recomputes its prefix).
+        keep = (m.n_blocks + 3) * statevector_bytes(n) + _unitary_bytes(models) <= _cap(cap_bytes)
+        prefix = _prefix_states(n, mats, m, keep)
         if given is not None:
             ideal_i = given[i]
         else:
-            noiseless = _simulate([_circuit(n, m, gates)], s, cap_bytes)
+            noiseless = _marginal(prefix[-1].reshape(-1), n, s)[None, :]
             ideal_i = events_from_probabilities(noiseless, s, ev, readout)[0]
         w0 = m.no_error_probability
         if m.error_probability < _NEGLIGIBLE:
@@ -403,14 +457,16 @@ def effective_event_probabilities(
             rows = ideal_i[None, :]
             value, se = ideal_i.copy(), np.zeros(len(ev))
         else:
-            _, errs = _sample_errors(m.lambdas, n_traj, rng)
+            first, errs = _sample_errors(m.lambdas, n_traj, rng)
             offsets = np.concatenate([[0], np.cumsum([len(q) for q in m.qubits])])
             paulis = rng.integers(0, 4, size=(n_traj, int(offsets[-1])), dtype=np.int8)
-            rows = np.empty((n_traj, len(ev)))
-            for lo in range(0, n_traj, batch):
-                hi = min(lo + batch, n_traj)
-                group = [_circuit(n, m, gates, errs[t], paulis[t], offsets) for t in range(lo, hi)]
-                rows[lo:hi] = events_from_probabilities(_simulate(group, s, cap_bytes), s, ev, readout)
+            marginals = np.array(
+                [
+                    _marginal(_trajectory(prefix, mats, m, int(first[t]), errs[t], paulis[t], offsets).reshape(-1), n, s)
+                    for t in range(n_traj)
+                ]
+            )
+            rows = events_from_probabilities(marginals, s, ev, readout)
             # The error-free part is exact: only (1 − w₀)·E[P | an error] carries sampling error.
             value = w0 * ideal_i + m.error_probability * rows.mean(axis=0)
             se = (

@@ -74,19 +74,19 @@ def _three_cx_gate():
 
 def test_zero_noise_is_the_noiseless_answer(monkeypatch):
     # Source: the noiseless limit (common practice): p = 0 is qiskit's ideal Statevector, and with
-    # w₀ = 1 the model simulates only the one noiseless circuit, no trajectory.
+    # w₀ = 1 the model computes the noiseless state alone, no trajectory.
     simulated = []
-    real = ne.run_statevectors
+    real = ne._trajectory
 
-    def counting(circuits, **kw):
-        simulated.append(len(circuits))
-        return real(circuits, **kw)
+    def counting(*args, **kw):
+        simulated.append(1)
+        return real(*args, **kw)
 
-    monkeypatch.setattr(ne, "run_statevectors", counting)
+    monkeypatch.setattr(ne, "_trajectory", counting)
     qc = random_circuit(4, 5, seed=11)
     res = effective_event_probabilities([qc], [EVENTS4], GateNoise(trajectories=50))
     np.testing.assert_allclose(res.probabilities[0], _statevector_events(qc, EVENTS4), atol=1e-12, rtol=0)
-    assert simulated == [1]
+    assert simulated == []  # no trajectory: the noiseless state alone
     assert res.ideal_weight == (1.0,) and res.samples[0].shape == (1, len(EVENTS4))
     assert np.all(res.standard_errors[0] == 0) and res.method == "effective"
     assert block_errors(qc, GateNoise()).no_error_probability == 1.0
@@ -225,17 +225,18 @@ def test_given_ideal_is_used_without_readout():
     np.testing.assert_array_equal(res.probabilities[0], given[0])
 
 
-def test_reproducible_and_independent_of_batching(monkeypatch):
-    # Source: the module's documented random stream (common practice: one seeded generator,
-    # drawn per circuit before batching), so the batch size cannot change the answer.
+def test_reproducible_and_independent_of_kept_prefixes(monkeypatch):
+    # Source: the module's documented random stream (common practice: one seeded generator, drawn
+    # per circuit before simulating), so recomputing each trajectory's noiseless prefix instead of
+    # keeping it cannot change the answer.
     qc = _basis_circuit()
     events = [{0: 0}, {1: 1, 2: 0}]
     spec = GateNoise(two_qubit=0.1, one_qubit=0.02, readout=0.01, trajectories=150, seed=9)
     a = effective_event_probabilities([qc, qc], [events, events], spec)
-    monkeypatch.setattr(ne, "BATCH", 7)
+    monkeypatch.setattr(ne, "_cap", lambda cap: 0)
     b = effective_event_probabilities([qc, qc], [events, events], spec)
     for i in range(2):
-        np.testing.assert_array_equal(a.samples[i], b.samples[i])
+        np.testing.assert_allclose(a.samples[i], b.samples[i], atol=1e-14, rtol=0)
     assert not np.array_equal(a.samples[0], a.samples[1])  # one stream: the circuits differ
 
 
