@@ -23,6 +23,8 @@ figures=(
   "fig7 fig7_scaling"
   "fig8 fig8_qsvt_vs_phase_estimation"
   "fig8b fig8_qsvt_vs_phase_estimation"   # fig. 8 on scikit-learn's diabetes data
+  "fig9 fig9_gate_noise"
+  "fig9b fig9_gate_noise"   # fig. 9 on scikit-learn's diabetes data
 )
 
 for entry in "${figures[@]}"; do

@@ -140,7 +140,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("store", type=Path, help="result store (SQLite) written by qgp sweep")
     p.add_argument("--out", type=Path, required=True, help="output folder for the figures")
-    p.add_argument("--only", nargs="+", metavar="FIG", help="draw only these figures (fig1 … fig8)")
+    p.add_argument("--only", nargs="+", metavar="FIG", help="draw only these figures (fig1 … fig9)")
     p.add_argument("--force", action="store_true", help="overwrite figure files already in --out")
     p.set_defaults(handler=_cmd_figures)
     p = sub.add_parser(

@@ -1,6 +1,6 @@
 """The figures of a parameter sweep (`qgp figures RESULTS.sqlite --out DIR`).
 
-Eight figures, each drawn only if the store holds the data it needs (otherwise skipped with a
+Nine figures, each drawn only if the store holds the data it needs (otherwise skipped with a
 note, never drawn empty):
 
 1. ``fig1_error_vs_qubits``   error of the mean and of the variance against total and clock qubits,
@@ -22,7 +22,13 @@ note, never drawn empty):
                               per κ: mean and variance error against block-encoding calls, with the
                               fewest calls for a 1% mean error marked and the query models κ/ε
                               (phase estimation) and κ·ln(κ/ε) (QSVT) beside them, unfitted; the mean's
-                              error against total qubits.
+                              error against total qubits;
+9. ``fig9_gate_noise``        how much gate noise the inference tolerates: mean and variance error
+                              against the two-qubit depolarising rate p, one line per method and
+                              accuracy setting, with the noiseless floors, the 1% target and the exact
+                              GP's own posterior spread; p*, where the mean's error crosses 1%, against
+                              the Hadamard-test circuit's two-qubit gates beside p = 1/gates (about one
+                              error per run), unfitted.
 
 Contract: every figure is drawn from the rows of the CSV written beside it and from nothing
 else, so the CSV holds exactly the plotted numbers. Columns (`CSV_COLUMNS`):
@@ -34,7 +40,8 @@ only in a seed axis, `SEED_KEYS`) of the stored value named by ``y_name`` ("summ
 "config:section.key"), with sample std and min–max (the band drawn); ``derived`` — a rule over the
 listed points stated in ``y_name``; ``reference`` — the formula in ``y_name``; ``classical`` — A's
 diagnostics recomputed from the stored config (listed points have the same n and store equal
-values); ``model`` — the closed-form filter model. Floats are written with ``repr`` (exact round
+values), or the exact GP's posterior spread recomputed from it (fig. 9; y_name states the rule,
+the listed points share the GP); ``model`` — the closed-form filter model. Floats are written with ``repr`` (exact round
 trip). Beside each figure: ``.pdf`` (vector), ``.png`` (300 dpi), ``.csv`` and a one-line caption ``.txt``.
 """
 
@@ -57,6 +64,7 @@ from qgp.sweeps.figures.fig5 import _fig5
 from qgp.sweeps.figures.fig6 import _fig6
 from qgp.sweeps.figures.fig7 import _fig7
 from qgp.sweeps.figures.fig8 import _fig8
+from qgp.sweeps.figures.fig9 import _fig9
 from qgp.sweeps.figures.model import (
     MEAN_TARGET,
     MODEL_MAX_CLOCK,
@@ -145,6 +153,7 @@ FIGURES: dict[str, Callable[[list], _Figure]] = {
     "fig6_circuit_cost": _fig6,
     "fig7_scaling": _fig7,
     "fig8_qsvt_vs_phase_estimation": _fig8,
+    "fig9_gate_noise": _fig9,
 }
 
 
@@ -158,7 +167,7 @@ def _select(only: Sequence[str] | None) -> list[str]:
     for want in only:
         hits = [n for n in FIGURES if n == want or n.split("_", 1)[0] == want]
         if not hits:
-            raise QgpError(f"unknown figure {want!r}; choose from {', '.join(FIGURES)} (or fig1 … fig8)")
+            raise QgpError(f"unknown figure {want!r}; choose from {', '.join(FIGURES)} (or fig1 … fig9)")
         out += [h for h in hits if h not in out]
     return out
 
@@ -167,7 +176,7 @@ def draw_figures(source, out_dir: str | Path, *, only: Sequence[str] | None = No
     """Draw every figure the data supports into ``out_dir``; the others come back skipped with a note.
 
     ``source``: a result store path or a sequence of StoredPoint-likes. ``only``: figure names or
-    "fig1" … "fig8".
+    "fig1" … "fig9".
     """
     points, text = load_points(source)
     out_dir = Path(out_dir)
