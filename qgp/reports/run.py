@@ -42,10 +42,13 @@ Columns: the input columns, then
   mean_noiseless, variance_noiseless     (only with [gate_noise]) the noiseless circuits' exact estimates
   mean_trajectory_se, variance_trajectory_se   (only with [gate_noise]) the noise-sampling SE alone
                                     (0 for the exact density matrix)
-  variance_quantum_hadamard         latent variance from a Hadamard test with k* on both sides
+  success_probability_noisy, success_probability_variance_noisy   (only with [gate_noise]) the two
+                                    success probabilities below, under the noise
+  variance_quantum_hadamard         latent variance from a Hadamard test with k* on both sides (noiseless
+                                    even with [gate_noise]: not simulated under noise)
   variance_quantum_negative         1 where the quantum latent variance came out <= 0 (reported as computed, never clipped)
-  success_probability               P(Hadamard-test run lands in flag=1, clock=0, block=0)
-  success_probability_variance      P(flag=1) of the variance circuit
+  success_probability               P(Hadamard-test run lands in flag=1, clock=0, block=0), noiseless
+  success_probability_variance      P(flag=1) of the variance circuit, noiseless
   target                            the test file's target value, when present
 
 Add the noise variance (summary.json: noise_variance) to a latent variance for the predictive variance of y.
@@ -60,7 +63,8 @@ def prediction_columns(result: InferenceResult) -> list[str]:
     if result.mean_quantum_se is not None:
         cols += ["mean_quantum_se", "variance_quantum_se"]
     if result.gate_noise is not None:
-        cols += ["mean_noiseless", "variance_noiseless", "mean_trajectory_se", "variance_trajectory_se"]
+        cols += ["mean_noiseless", "variance_noiseless", "mean_trajectory_se", "variance_trajectory_se",
+                 "success_probability_noisy", "success_probability_variance_noisy"]
     cols += ["variance_quantum_hadamard", "variance_quantum_negative", "success_probability", "success_probability_variance"]
     if result.problem.y_test is not None:
         cols.append("target")
@@ -78,7 +82,9 @@ def write_predictions(result: InferenceResult, path: Path) -> None:
     if result.mean_quantum_se is not None:
         columns += [result.mean_quantum_se, result.variance_quantum_se]
     if result.gate_noise is not None:
-        columns += [result.mean_noiseless, result.variance_noiseless, result.mean_trajectory_se, result.variance_trajectory_se]
+        noisy = result.noisy
+        columns += [result.mean_noiseless, result.variance_noiseless, result.mean_trajectory_se, result.variance_trajectory_se,
+                    noisy.p0 + noisy.p1, noisy.p_flag]
     columns += [
         result.variance_quantum_hadamard,
         (result.variance_quantum <= 0).astype(int),
@@ -207,7 +213,8 @@ def provenance(result: InferenceResult) -> dict[str, str]:
         )
         out["gate_noise"] = (
             f"one Hadamard-test and one variance circuit per test point in the gate form, under {how}; "
-            "mean_quantum and variance_quantum are these noisy answers"
+            "mean_quantum and variance_quantum are these noisy answers (variance_quantum_hadamard and the success "
+            "probabilities outside the gate_noise record stay noiseless)"
         )
         out["error_budget"] += "; stage gate_noise: the noisy answers without shots"
     out["mean_exact"] = out["variance_exact"] = "the exact GP in numpy/scipy (Cholesky; Rasmussen & Williams Alg. 2.1)"

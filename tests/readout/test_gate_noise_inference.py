@@ -132,3 +132,23 @@ def test_density_matrix_refused_before_building_when_too_large(tmp_path):
             gate_noise=GateNoise(method="density_matrix", two_qubit=1e-3),
             progress=None,
         )
+
+
+def test_run_writes_the_noisy_and_noiseless_columns(tmp_path):
+    # The outputs (noisy beside noiseless): predictions.csv columns and the summary record.
+    import csv
+    import json
+
+    from qgp.reports.run import run_config
+
+    cfg = load_config(_config(tmp_path, CIRCUITS["walk"], "two_qubit = 1e-3\ntrajectories = 20\n"))
+    run_config(cfg, tmp_path / "out", quiet=True, figures=False)
+    with open(tmp_path / "out" / "predictions.csv") as fh:
+        rows = list(csv.DictReader(fh))
+    for column in ("mean_noiseless", "mean_trajectory_se", "success_probability_noisy", "mean_quantum_se"):
+        assert column in rows[0], column
+    doc = json.loads((tmp_path / "out" / "summary.json").read_text())
+    assert doc["gate_noise"]["two_qubit"] == 1e-3 and doc["gate_noise"]["method"] == "effective"
+    assert doc["error_budget"]["order"][-1] == "gate_noise"
+    worst = max(abs(float(r["mean_quantum"]) - float(r["mean_noiseless"])) for r in rows)
+    assert worst > 0  # 1e-3 per gate on hundreds of two-qubit gates moves the answer
