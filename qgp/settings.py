@@ -181,7 +181,7 @@ class GateNoise:
     trajectories : int
         Noise samples per circuit for ``trajectories`` and ``effective``, at least 1.
     seed : int
-        Seed of the transpiler and of the trajectory sampler.
+        Seed of the trajectory sampler (the lowering to the basis is deterministic).
     """
 
     two_qubit: float = 0.0

@@ -178,7 +178,7 @@ SUMMARY_KEYS: tuple[SummaryKey, ...] = (
     _k("gate_noise.method", "str", "density_matrix, trajectories or effective", column="gate_noise_method",
        optional=True, when=_NOISE),
     _k("gate_noise.trajectories", "int", "noise samples per circuit (1: density matrix)", optional=True, when=_NOISE),
-    _k("gate_noise.seed", "int", "seed of the noise sampler and transpiler", optional=True, when=_NOISE),
+    _k("gate_noise.seed", "int", "seed of the trajectory sampler", optional=True, when=_NOISE),
     _k("gate_noise.mean_max_abs_error_noiseless", "float", "the noiseless circuits' max |mean error| (the floor)",
        column="mean_max_abs_error_noiseless", optional=True, when=_NOISE),
     _k("gate_noise.variance_max_abs_error_noiseless", "float", "the noiseless circuits' max |variance error|",
