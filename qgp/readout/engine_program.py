@@ -52,11 +52,6 @@ def _qft_signature(c: int, inverse: bool) -> tuple:
 
 
 def _matrix_of(op) -> np.ndarray:
-    # A UnitaryGate's own matrix, not to_matrix()'s copy: compiled programs are kept
-    # (`_PROGRAMS`), and many circuits sharing one wide gate held a copy each (the effective
-    # noise model's trajectories: ~3 GB for 128 trajectories of a 15-qubit circuit, measured).
-    if op.name == "unitary" and isinstance(op.params[0], np.ndarray):
-        return np.asarray(op.params[0], dtype=complex)
     return np.asarray(op.to_matrix(), dtype=complex) if hasattr(op, "to_matrix") else np.asarray(op, dtype=complex)
 
 

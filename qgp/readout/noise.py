@@ -43,7 +43,7 @@ from qgp.errors import QgpError
 from qgp.memory import require_memory, statevector_bytes
 from qgp.settings import VIRTUAL_GATES, GateNoise, gate_arity as _gate_arity
 
-__all__ = ["GateNoise", "ProbabilityResult", "noise_model", "gate_level", "check_events", "events_from_probabilities", "event_probabilities"]
+__all__ = ["GateNoise", "ProbabilityResult", "noise_model", "noisy_gate_counts", "gate_level", "check_events", "events_from_probabilities", "event_probabilities"]
 
 @dataclass(frozen=True)
 class ProbabilityResult:
@@ -106,6 +106,14 @@ def noise_model(spec: GateNoise):
         r = float(spec.readout)
         model.add_all_qubit_readout_error(ReadoutError([[1 - r, r], [r, 1 - r]]))
     return model
+
+
+def noisy_gate_counts(counts) -> tuple[int, int]:
+    """(two-qubit, non-virtual one-qubit) gates among gate-level ``counts`` (name → count): the
+    gates a depolarising error follows in `noise_model` (``rz`` is virtual and error-free)."""
+    two = sum(int(n) for name, n in counts.items() if _gate_arity(name) == 2)
+    one = sum(int(n) for name, n in counts.items() if _gate_arity(name) == 1 and name not in VIRTUAL_GATES)
+    return two, one
 
 
 def gate_level(circuit: QuantumCircuit, spec: GateNoise) -> QuantumCircuit:

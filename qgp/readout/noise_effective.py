@@ -71,8 +71,8 @@ from qiskit import QuantumCircuit
 from qgp.circuits.decomposition import DecomposedCircuit, Piece, decompose_circuit, piece_counts
 from qgp.errors import QgpError
 from qgp.memory import default_memory_cap, require_memory, statevector_bytes
-from qgp.readout.noise import ProbabilityResult, check_events, events_from_probabilities
-from qgp.settings import VIRTUAL_GATES, GateNoise, gate_arity
+from qgp.readout.noise import ProbabilityResult, check_events, events_from_probabilities, noisy_gate_counts
+from qgp.settings import GateNoise
 
 __all__ = ["MAX_BLOCK_QUBITS", "BlockModel", "block_errors", "effective_event_probabilities"]
 
@@ -138,10 +138,7 @@ def _piece_gate_counts(piece: Piece, basis: tuple[str, ...]) -> tuple[int, int]:
 
     `piece_counts` gives `lower_piece`'s counts, from the in-memory or disk cache when it can, so
     a circuit counted before (e.g. for the resource report) is not transpiled again."""
-    counts = piece_counts(piece, tuple(basis)).counts
-    two = sum(int(n) for name, n in counts.items() if gate_arity(name) == 2)
-    one = sum(int(n) for name, n in counts.items() if gate_arity(name) == 1 and name not in VIRTUAL_GATES)
-    return two, one
+    return noisy_gate_counts(piece_counts(piece, tuple(basis)).counts)
 
 
 def _log_survival(two: np.ndarray, one: np.ndarray, spec: GateNoise) -> np.ndarray:

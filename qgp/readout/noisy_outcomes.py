@@ -29,11 +29,11 @@ from qgp.errors import QgpError
 from qgp.memory import require_memory, statevector_bytes
 from qgp.readout.builds import cached_pair, qpe_body
 from qgp.readout.estimators import PROBE, hadamard_test_circuit, variance_circuit
-from qgp.readout.noise import ProbabilityResult, event_probabilities
+from qgp.readout.noise import ProbabilityResult, event_probabilities, noisy_gate_counts
 from qgp.readout.noise_effective import effective_event_probabilities
-from qgp.settings import VIRTUAL_GATES, GateNoise, gate_arity
+from qgp.settings import GateNoise
 
-__all__ = ["NoisyOutcomes", "noisy_outcomes", "point_circuits", "readout_events", "two_qubit_gates"]
+__all__ = ["NoisyOutcomes", "noisy_outcomes", "point_circuits", "readout_events"]
 
 Progress = Callable[[str], None]
 
@@ -47,7 +47,7 @@ class NoisyOutcomes:
 
     ``d_se`` is the SE of P₀ − P₁ (their covariance inside each trajectory kept); ``gate_counts``
     the gate-level counts of test point 0's two circuits in the noise basis (``two_qubit``,
-    ``one_qubit`` noisy one-qubit gates, ``virtual`` error-free ones); ``no_error_probability``
+    ``one_qubit``: the noisy one-qubit gates); ``no_error_probability``
     the exact weight of the error-free part (effective model; None for the gate-level methods).
     """
 
@@ -97,16 +97,9 @@ def readout_events(mean_circuit: QuantumCircuit, variance: QuantumCircuit) -> tu
     return mean_events, [{var_flag: 1}]
 
 
-def two_qubit_gates(counts: dict[str, int]) -> int:
-    """Two-qubit gates among gate-level ``counts`` (name → count)."""
-    return int(sum(n for name, n in counts.items() if gate_arity(name) == 2))
-
-
 def _counts(qc: QuantumCircuit, basis: tuple[str, ...]) -> dict:
-    counts = decompose_circuit(qc).gate_counts(basis)
-    one = sum(n for name, n in counts.items() if gate_arity(name) == 1 and name not in VIRTUAL_GATES)
-    virtual = sum(n for name, n in counts.items() if name in VIRTUAL_GATES)
-    return {"two_qubit": two_qubit_gates(counts), "one_qubit": int(one), "virtual": int(virtual)}
+    two, one = noisy_gate_counts(decompose_circuit(qc).gate_counts(basis))
+    return {"two_qubit": two, "one_qubit": one}
 
 
 def _guard(width: int, spec: GateNoise, cap: int) -> None:
