@@ -71,6 +71,21 @@ class Algorithm:
             return budget_reference_model(settings, "inverse", bounds), budget_reference_model(settings, "inverse_sqrt", bounds)
         return inverse, inverse_sqrt
 
+    def fault_tolerant_gap(self, settings) -> str | None:
+        """Why the method has no fault-tolerant query model at scale (None when it has one)."""
+        return get_method(settings.evolution).fault_tolerant_gap(settings) if self.uses_clock else None
+
+    def fault_tolerant_queries(self, settings, *, lambda_lo: float, lambda_hi: float, alpha: float, relative_error: float):
+        """`qgp.circuits.methods.base.FaultTolerantQueries` of one inversion at relative error ε
+        (phase estimation: the oracle's model and the clock it needs; QSVT: the polynomial's degree)."""
+        if self.uses_clock:
+            return get_method(settings.evolution).fault_tolerant_queries(
+                settings, lambda_lo=lambda_lo, lambda_hi=lambda_hi, alpha=alpha, relative_error=relative_error
+            )
+        from qgp.circuits.qsvt_inversion import qsvt_fault_tolerant_queries
+
+        return qsvt_fault_tolerant_queries(lambda_lo=lambda_lo, alpha=alpha, relative_error=relative_error)
+
     def closed_form_model(self, settings) -> bool:
         """Whether qgp.readout.filter_model's operator is what the circuit applies (QSVT: p itself)."""
         return bool(get_method(settings.evolution).closed_form_model) if self.uses_clock else True

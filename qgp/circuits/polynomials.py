@@ -104,6 +104,7 @@ __all__ = [
     "inverse_sqrt_polynomial",
     "inversion_polynomial",
     "optimal_degree",
+    "residual_degree",
     "optimal_error",
 ]
 
@@ -313,6 +314,30 @@ def optimal_error(condition_number: float, degree: int) -> float:
     kappa = _check_kappa(condition_number)
     d = _check_degree(degree, parity=1)
     return _optimal_error(1.0 / kappa, (d + 1) // 2)
+
+
+def residual_degree(condition_number: float, target_error: float) -> int:
+    """Closed-form degree of the Chebyshev residual inverse at relative error ε, for any κ_b.
+
+    d = 2k − 1 with k = ⌈arccosh(1/ε)/ln ρ⌉, ρ = (1 + a)/(1 − a), a = 1/κ_b: the relative error of
+    the residual construction is 1/cosh(k ln ρ) (see `inversion_polynomial`, which starts its
+    measured search here). No degree cap: the fault-tolerant cost model uses it far beyond
+    what can be built. For large κ_b, d ≈ κ_b·ln(2/ε).
+
+    Parameters
+    ----------
+    condition_number : float
+        κ_b > 1.
+    target_error : float
+        In (0, 1).
+
+    Returns
+    -------
+    int
+    """
+    kappa = _check_kappa(condition_number)
+    eps = _check_target(target_error)
+    return 2 * max(1, math.ceil(math.acosh(1.0 / eps) / _log_rho(1.0 / kappa))) - 1
 
 
 def optimal_degree(condition_number: float, target_error: float) -> int:

@@ -21,15 +21,16 @@ from qiskit.circuit import QuantumCircuit
 
 from qgp.circuits.encoding import amplitude_encoding, check_matrix
 from qgp.circuits.inversion import InversionCircuit, check_bounds
+from qgp.circuits.methods.base import FaultTolerantQueries
 from qgp.circuits.methods.encodings import get_encoding
 from qgp.circuits.phase_estimation import Form
-from qgp.circuits.polynomials import InversionPolynomial, inverse_sqrt_polynomial, inversion_polynomial
+from qgp.circuits.polynomials import InversionPolynomial, inverse_sqrt_polynomial, inversion_polynomial, residual_degree
 from qgp.circuits.qsp import qsp_phases
 from qgp.circuits.qsvt import qsvt_circuit
 from qgp.errors import QgpError
 from qgp.settings import CircuitSettings, Rotation
 
-__all__ = ["QSP_MAX_ABS", "qsvt_polynomial", "build_qsvt_inversion", "qsvt_scale"]
+__all__ = ["QSP_MAX_ABS", "qsvt_polynomial", "build_qsvt_inversion", "qsvt_scale", "qsvt_fault_tolerant_queries"]
 
 #: Largest |p| on [−1, 1] the polynomials are scaled to: the phase-factor solver converges to
 #: 1e-13 up to 0.999 (measured, qgp.circuits.qsp), and 0.1% of success probability is the price.
@@ -65,6 +66,34 @@ def qsvt_polynomial(settings: CircuitSettings, rotation: Rotation, condition_num
 def qsvt_scale(poly: InversionPolynomial, rotation: Rotation, lambda_lo: float) -> float:
     """C with block ≈ C·A⁻¹ (``inverse``: s·λ_lo) or P(flag = 1) ≈ C·bᵀA⁻¹b (``inverse_sqrt``: s²·λ_lo)."""
     return float(poly.scale * lambda_lo if rotation == "inverse" else poly.scale**2 * lambda_lo)
+
+
+def qsvt_fault_tolerant_queries(*, lambda_lo: float, alpha: float, relative_error: float) -> FaultTolerantQueries:
+    """Block-encoding calls of one QSVT inversion at relative error ε: the polynomial's degree.
+
+    The circuit calls U (or U†) once per degree (Gilyén, Su, Low & Wiebe 2019, Thm 17); the
+    degree is the Chebyshev residual's closed form at κ_b = α/λ_lo (`residual_degree`, the
+    construction `qsvt_polynomial` builds), ≈ κ_b·ln(2/ε). One signal qubit beyond U's.
+
+    Parameters
+    ----------
+    lambda_lo, alpha : float
+        A lower bound on A's smallest eigenvalue and the block encoding's α (α > λ_lo > 0).
+    relative_error : float
+        ε in (0, 1).
+
+    Returns
+    -------
+    FaultTolerantQueries
+    """
+    d = residual_degree(alpha / lambda_lo, relative_error)
+    return FaultTolerantQueries(
+        clock_qubits=0,
+        oracle_calls=float(d),
+        block_encoding_calls=float(d),
+        extra_qubits=1,
+        model="QSVT: one block-encoding call per degree of the Chebyshev residual inverse, d ≈ κ_b ln(2/ε)",
+    )
 
 
 def build_qsvt_inversion(

@@ -16,12 +16,15 @@ method has no evolution time) and ``alpha`` the block encoding's α (None withou
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import ClassVar
 
 import numpy as np
 
-__all__ = ["InversionMethod", "SizePiece"]
+__all__ = ["InversionMethod", "SizePiece", "FaultTolerantQueries", "fault_tolerant_clock_qubits"]
+
+#: Most clock qubits the fault-tolerant query model considers (2^80 calls is far past any device).
+_MAX_FT_CLOCK = 80
 
 
 @dataclass(frozen=True)
@@ -33,6 +36,38 @@ class SizePiece:
     synthesis_gates: int
     expanded_gates: int
     largest_piece: str
+
+
+@dataclass(frozen=True)
+class FaultTolerantQueries:
+    """Block-encoding calls of one inversion (A⁻¹ applied once, uncompute included) at scale.
+
+    ``clock_qubits`` is 0 without phase estimation; ``oracle_calls`` counts the method's own
+    oracle (controlled W, controlled e^{iAt}, or U itself for QSVT); ``block_encoding_calls`` the
+    calls of the sparse-access block encoding those need; ``extra_qubits`` the logical qubits
+    beyond the system, block-encoding and read-out registers (clock, QSVT signal qubit, the
+    Hamiltonian simulation's ancillas); ``model`` says which published count it is.
+    """
+
+    clock_qubits: int
+    oracle_calls: float
+    block_encoding_calls: float
+    extra_qubits: int
+    model: str
+
+
+def fault_tolerant_clock_qubits(bin_width, lambda_lo: float, relative_error: float) -> int:
+    """Smallest c ≥ 2 whose clock bin at λ_lo is at most ε·λ_lo: ``bin_width(c) ≤ ε·λ_lo``.
+
+    The grid must resolve the smallest eigenvalue to relative error ε, because the rotation
+    applies C/λ̃ and a relative error in λ̃ is one in the estimate (Harrow, Hassidim & Lloyd
+    2009, PRL 103, 150502: t₀ = O(κ/ε)).
+    """
+    target = relative_error * lambda_lo
+    for c in range(2, _MAX_FT_CLOCK + 1):
+        if bin_width(c) <= target:
+            return c
+    raise ValueError(f"no clock of ≤ {_MAX_FT_CLOCK} qubits resolves λ_lo = {lambda_lo:g} to relative error {relative_error:g}")
 
 
 @dataclass(frozen=True)
@@ -138,6 +173,60 @@ class InversionMethod(ABC):
         """Product-formula steps per oracle call (None for methods that are not product formulas)."""
         return None
 
+    def phase_estimation_calls(self, clock_qubits: int, uncompute: bool = True) -> int:
+        """Controlled oracle calls of phase estimation with ``clock_qubits`` (Σ_j 2^j = 2^c − 1 per
+        estimation; twice with the uncompute) — what `qgp.circuits.resources` counts."""
+        return (2**clock_qubits - 1) * (2 if uncompute else 1)
+
+    def fault_tolerant_gap(self, settings) -> str | None:
+        """Why this method has no fault-tolerant query model at scale (None when it has one)."""
+        return None
+
+    def block_encoding_calls_per_oracle(self, evolution_time, alpha: float, power: int, precision: float) -> float:
+        """Sparse-access block-encoding calls to apply the oracle to the ``power`` (controlled)."""
+        raise NotImplementedError(f"{self.name} has no fault-tolerant query model")
+
+    def fault_tolerant_queries(self, settings, *, lambda_lo: float, lambda_hi: float, alpha: float, relative_error: float) -> FaultTolerantQueries:
+        """Block-encoding calls of one inversion at relative error ε, from a-priori λ_lo, λ_hi and α.
+
+        The clock is the smallest that resolves λ_lo to ε (`fault_tolerant_clock_qubits`, with
+        the method's own bin width and t derived from λ_hi for that clock); the oracle calls are
+        phase estimation's 2(2^c − 1) with the uncompute, as the simulated circuits count them; each
+        power's block-encoding calls come from `block_encoding_calls_per_oracle`.
+        """
+        gap = self.fault_tolerant_gap(settings)
+        if gap is not None:
+            raise NotImplementedError(gap)
+
+        def width(c):
+            return self.bin_width(lambda_lo, c, self.evolution_time(_with_clock(settings, c), lambda_hi), alpha)
+
+        c = fault_tolerant_clock_qubits(width, lambda_lo, relative_error)
+        t = self.evolution_time(_with_clock(settings, c), lambda_hi)
+        # Each of the 2c controlled powers gets an equal share of the error budget.
+        precision = relative_error / (2 * c)
+        per_estimation = sum(self.block_encoding_calls_per_oracle(t, alpha, 2**j, precision) for j in range(c))
+        return FaultTolerantQueries(
+            clock_qubits=c,
+            oracle_calls=float(self.phase_estimation_calls(c)),
+            block_encoding_calls=2.0 * per_estimation,
+            extra_qubits=c + self.fault_tolerant_ancillas(),
+            model=self.fault_tolerant_model(),
+        )
+
+    def fault_tolerant_ancillas(self) -> int:
+        """Logical qubits the oracle needs beyond the block encoding's own (0 by default)."""
+        return 0
+
+    def fault_tolerant_model(self) -> str:
+        """The published count behind `block_encoding_calls_per_oracle`, in words."""
+        return ""
+
     def query_counts(self, a: np.ndarray, settings, lambda_hi: float, n_pauli_terms: int | None):
         """(α, block qubits, t, Pauli terms) without building a circuit (resources' query-only path)."""
         return None, self.block_qubits(settings), self.evolution_time(settings, lambda_hi), n_pauli_terms
+
+
+def _with_clock(settings, clock_qubits: int):
+    """``settings`` with another clock size and a derived evolution time (the model picks both)."""
+    return replace(settings, clock_qubits=clock_qubits, evolution_time=None)

@@ -206,5 +206,11 @@ class TrotterEvolution(ExactEvolution):
     def synthesis_dependent(self, settings):
         return None
 
+    def fault_tolerant_gap(self, settings) -> str | None:
+        return (
+            "no fault-tolerant model at scale: the product formula runs over A's Pauli strings, up to 4^m "
+            "of them for a kernel matrix, and its step count needs commutator bounds qgp does not compute"
+        )
+
     def steps_per_call(self, settings) -> int:
         return settings.trotter_steps

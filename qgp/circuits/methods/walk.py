@@ -186,6 +186,13 @@ class QubitizationWalk(InversionMethod):
     def block_encoding(self, A, settings) -> BlockEncoding:
         return get_encoding(settings.encoding).build(A)
 
+    def block_encoding_calls_per_oracle(self, evolution_time, alpha, power, precision):
+        # W^p = (R·U)^p: one call of U per step, exactly (Low & Chuang, Quantum 3, 163 (2019)).
+        return float(power)
+
+    def fault_tolerant_model(self) -> str:
+        return "qubitization walk: one block-encoding call per step of W (Low & Chuang 2019)"
+
     def oracle(self, A, settings, lambda_hi, form, block_encoding=None):
         if block_encoding is None:
             raise QgpError("the walk oracle needs a block encoding; set [circuit] encoding")
