@@ -28,6 +28,7 @@ STAGES = {
     "classical": 2,
     "circuits": 3,
     "readout": 4,
+    "scale": 4.5,  # κ growth and fault-tolerant cost: uses the classical side and the circuits' query models
     "reports": 5,
     "sweeps": 6,
     "tools": 7,
