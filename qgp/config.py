@@ -7,6 +7,7 @@ or row, and says how to fix it; nothing heavy runs before validation has passed.
 from __future__ import annotations
 
 import csv
+import gzip
 import math
 import tomllib
 from dataclasses import dataclass
@@ -33,6 +34,8 @@ from qgp.settings import (
     Method,
     GateNoise,
     NoiseMethod,
+    ScaleOrder,
+    ScaleSettings,
     choices,
 )
 
@@ -59,6 +62,21 @@ _SECTIONS: dict[str, tuple[str, ...]] = {
     ),
     "readout": ("shots", "seed", "strategy", "memory_cap_gib", "engine"),
     "gate_noise": ("two_qubit", "one_qubit", "readout", "basis", "method", "trajectories", "seed"),
+    "scale": (
+        "n_min",
+        "n_max",
+        "order",
+        "target_condition",
+        "relative_error",
+        "test_points",
+        "cost_n_min",
+        "cost_n_max",
+        "cost_points_per_decade",
+        "physical_error",
+        "cycle_seconds",
+        "failure_budget",
+        "classical_flop_rate",
+    ),
 }
 
 
@@ -100,7 +118,10 @@ def parse_config(raw: dict[str, Any], *, base_dir: Path, source: Path | None = N
     circuit = _parse_circuit(v, raw.get("circuit", {}))
     readout = _parse_readout(v, raw.get("readout", {}))
     gate_noise = _parse_gate_noise(v, raw["gate_noise"]) if "gate_noise" in raw else None
-    return Config(data=data, kernel=kernel, noise=noise, circuit=circuit, readout=readout, gate_noise=gate_noise, source=source)
+    scale = _parse_scale(v, raw.get("scale", {}))
+    return Config(
+        data=data, kernel=kernel, noise=noise, circuit=circuit, readout=readout, gate_noise=gate_noise, scale=scale, source=source
+    )
 
 
 class _Validator:
@@ -341,6 +362,37 @@ def _parse_gate_noise(v: _Validator, t: dict) -> GateNoise:
         raise QgpError(f"{v.where}: {exc}") from None
 
 
+def _parse_scale(v: _Validator, t: dict) -> ScaleSettings:
+    d = ScaleSettings()
+    values = dict(
+        n_min=v.integer(t, "scale", "n_min", d.n_min, minimum=4),
+        n_max=v.integer(t, "scale", "n_max", d.n_max, minimum=4, maximum=2**24),
+        order=v.choice(t, "scale", "order", d.order, ScaleOrder),
+        target_condition=v.number(t, "scale", "target_condition", d.target_condition, gt=1.0),
+        relative_error=v.number(t, "scale", "relative_error", d.relative_error, gt=0.0),
+        test_points=v.integer(t, "scale", "test_points", d.test_points, minimum=1),
+        cost_n_min=v.integer(t, "scale", "cost_n_min", d.cost_n_min, minimum=2),
+        cost_n_max=v.integer(t, "scale", "cost_n_max", d.cost_n_max, minimum=2, maximum=10**12),
+        cost_points_per_decade=v.integer(t, "scale", "cost_points_per_decade", d.cost_points_per_decade, minimum=1, maximum=100),
+        physical_error=v.number(t, "scale", "physical_error", d.physical_error, gt=0.0),
+        cycle_seconds=v.number(t, "scale", "cycle_seconds", d.cycle_seconds, positive=True),
+        failure_budget=v.number(t, "scale", "failure_budget", d.failure_budget, gt=0.0),
+        classical_flop_rate=v.number(t, "scale", "classical_flop_rate", None, positive=True),
+    )
+    if values["n_max"] < values["n_min"]:
+        raise v.fail("scale", "n_max", f"= {values['n_max']} is below n_min = {values['n_min']}; raise n_max or lower n_min")
+    if values["cost_n_max"] <= values["cost_n_min"]:
+        raise v.fail("scale", "cost_n_max", f"= {values['cost_n_max']} is not above cost_n_min = {values['cost_n_min']}; widen the range")
+    for key in ("relative_error", "failure_budget"):
+        if not values[key] < 1:
+            raise v.fail("scale", key, f"must be below 1 (a probability or relative error), got {values[key]!r}")
+    if not values["physical_error"] < 1e-2:
+        raise v.fail(
+            "scale", "physical_error", f"= {values['physical_error']!r} is not below the surface code's threshold ≈ 1e-2; use e.g. 1e-3"
+        )
+    return ScaleSettings(**values)
+
+
 @dataclass(frozen=True)
 class Dataset:
     """Training and (optional) test data in file order; ``y_test`` is None without a target column."""
@@ -357,10 +409,13 @@ def read_csv(path: Path, target: str, *, target_required: bool = True) -> tuple[
     """Parse a numeric CSV with a header row into (X, y or None, input column names)."""
     try:
         # utf-8-sig: spreadsheet programs start a UTF-8 CSV with a byte-order mark.
-        with open(path, newline="", encoding="utf-8-sig") as fh:
+        opener = gzip.open if Path(path).suffix == ".gz" else open
+        with opener(path, "rt", newline="", encoding="utf-8-sig") as fh:
             rows = list(csv.reader(fh))
     except UnicodeDecodeError:
         raise QgpError(f"{path} is not a UTF-8 text CSV file; export it as CSV") from None
+    except (gzip.BadGzipFile, EOFError):
+        raise QgpError(f"{path} ends in .gz but is not a complete gzip file; recompress it or drop the .gz") from None
     rows = [r for r in rows if any(cell.strip() for cell in r)]
     if not rows:
         raise QgpError(f"{path} is empty; it needs a header row and data rows")

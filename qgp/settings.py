@@ -225,6 +225,37 @@ class GateNoise:
         return self.two_qubit == 0 and self.one_qubit == 0 and self.readout == 0
 
 
+#: ``[scale] order``: nested subsets from the ``subsample_seed`` permutation, or in file order.
+ScaleOrder = Literal["permutation", "file"]
+
+
+@dataclass(frozen=True)
+class ScaleSettings:
+    """``[scale]``: the conditioning audit and the fault-tolerant cost model (``qgp scale``).
+
+    Audit: nested subsets n = ``n_min``, 2·n_min, … ≤ ``n_max`` (and the data's size), at the
+    fixed ``[noise] variance`` and at the σ² that ``target_condition`` needs. Costs: n from
+    ``cost_n_min`` to ``cost_n_max`` (``cost_points_per_decade`` per decade) for ``test_points``
+    test points, each estimate to relative error ``relative_error``; surface code at
+    ``physical_error`` with ``cycle_seconds`` per code cycle and a total failure probability
+    ``failure_budget``; the classical GP at ``classical_flop_rate`` flop/s (None: measured).
+    """
+
+    n_min: int = 64
+    n_max: int = 2**17
+    order: ScaleOrder = "permutation"
+    target_condition: float = 100.0
+    relative_error: float = 0.01
+    test_points: int = 1
+    cost_n_min: int = 100
+    cost_n_max: int = 10**6
+    cost_points_per_decade: int = 4
+    physical_error: float = 1e-3
+    cycle_seconds: float = 1e-6
+    failure_budget: float = 0.01
+    classical_flop_rate: float | None = None
+
+
 @dataclass(frozen=True)
 class Config:
     """A whole validated config file. ``source`` is the file it came from (None if built in code)."""
@@ -236,4 +267,6 @@ class Config:
     readout: ReadoutSettings = ReadoutSettings()
     #: ``[gate_noise]``; None (no section) means the noiseless circuits only.
     gate_noise: GateNoise | None = None
+    #: ``[scale]`` (defaults when the section is absent).
+    scale: ScaleSettings = ScaleSettings()
     source: Path | None = None

@@ -206,3 +206,31 @@ def test_bad_qsvt_settings_are_one_clear_error(tmp_path, circuit, fragment):
         load_config(_write(tmp_path, BASE + "[noise]\nvariance = 0.1\n[circuit]\n" + circuit))
     msg = str(err.value)
     assert fragment in msg and "\n" not in msg, msg
+
+
+def test_gzipped_csv_reads_like_the_plain_file(tmp_path):
+    # Reference: the same rows written plain; Python's gzip module compresses them.
+    import gzip
+
+    text = "x,y\n0.5,1.25\n1.5,-2.0\n"
+    (tmp_path / "plain.csv").write_text(text)
+    with gzip.open(tmp_path / "packed.csv.gz", "wt") as fh:
+        fh.write(text)
+    from qgp.config import read_csv
+
+    Xp, yp, _ = read_csv(tmp_path / "plain.csv", "y")
+    Xg, yg, _ = read_csv(tmp_path / "packed.csv.gz", "y")
+    assert np.array_equal(Xp, Xg) and np.array_equal(yp, yg)
+    (tmp_path / "broken.csv.gz").write_bytes(gzip.compress(text.encode())[:-8])
+    with pytest.raises(QgpError, match="gzip"):
+        read_csv(tmp_path / "broken.csv.gz", "y")
+
+
+def test_bundled_radar_survey_loads_with_its_scale_section():
+    from qgp.demo import scale_config_path
+
+    cfg = load_config(scale_config_path())
+    data = load_dataset(cfg.data)
+    assert data.X_train.shape == (2**17, 1) and cfg.noise.variance == 2.25
+    assert len(np.unique(data.X_train[:, 0])) == 2**17  # distinct inputs: K stays non-singular at σ² = 0
+    assert cfg.scale.n_max == 2**17 and cfg.scale.target_condition == 100.0
