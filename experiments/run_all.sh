@@ -38,3 +38,14 @@ for entry in "${figures[@]}"; do
   cp "$run_dir/$sweep/$name.txt" "$dest.txt"
   echo "$sweep: $((SECONDS - start)) s (sweep and figures) -> $run_dir/$sweep/$name.{pdf,png}"
 done
+
+# At scale (`qgp scale`): the conditioning audit and the fault-tolerant cost table on the bundled radar
+# survey, without and with the taper. Its files (CSV, JSON, figures) are copied whole into results/.
+for entry in "scale_rbf --demo" "scale_tapered $here/scale_tapered.toml"; do
+  read -r name source <<<"$entry"
+  start=$SECONDS
+  qgp scale $source --out "$run_dir/$name" --force
+  mkdir -p "$here/results/$name"
+  cp "$run_dir/$name"/{conditioning.csv,costs.csv,scale.json} "$here/results/$name/"
+  echo "$name: $((SECONDS - start)) s -> $run_dir/$name/figures/{conditioning,costs}.{pdf,png}"
+done
