@@ -26,7 +26,7 @@ from qgp.errors import QgpError
 from qgp.files import atomic_open, atomic_write_text, check_outputs
 from qgp.scale.classical_cost import measure_flop_rate
 from qgp.scale.conditioning import CONDITIONING_COLUMNS, conditioning_audit, nested_sizes, subset_order
-from qgp.scale.costs import COST_COLUMNS, ScaleLaws, cost_sizes, cost_table, crossovers
+from qgp.scale.costs import COST_COLUMNS, LOOKUP_QUBIT_CAP, ScaleLaws, cost_sizes, cost_table, crossovers
 from qgp.scale.fault_tolerant import SurfaceCodeAssumptions
 from qgp.scale.growth import fit_growth
 from qgp.settings import Config
@@ -40,6 +40,7 @@ __all__ = [
     "CAVEAT",
     "scale_outputs",
     "run_scale",
+    "draw_scale_figures",
 ]
 
 SCALE_SCHEMA = "qgp.scale/1"
@@ -231,16 +232,44 @@ def run_scale(
         "caveat": CAVEAT,
         "seconds": None,
     }
-    if figures:
-        from qgp.reports.scale_figures import conditioning_figure, costs_figure
-
-        conditioning_figure(rows, fits, doc, out / FIGURES_DIR / "conditioning")
-        costs_figure(costs, doc, out / FIGURES_DIR / "costs")
     doc["seconds"] = round(time.perf_counter() - start, 3)
     atomic_write_text(out / SCALE_FILE, json.dumps(_finite(doc), indent=2, ensure_ascii=False) + "\n")
+    if figures:
+        draw_scale_figures(out)
     if say:
         say(f"wrote {out} in {doc['seconds']:.1f} s")
     return doc
+
+
+def _read_csv_rows(path: Path) -> list:
+    """CSV rows back as objects: numbers as floats, empty cells as None, True/False as booleans."""
+    from types import SimpleNamespace
+
+    def value(text: str):
+        if text == "":
+            return None
+        if text in ("True", "False"):
+            return text == "True"
+        try:
+            return float(text)
+        except ValueError:
+            return text
+
+    with open(path, newline="", encoding="utf-8") as fh:
+        return [SimpleNamespace(**{k: value(v) for k, v in row.items()}) for row in csv.DictReader(fh)]
+
+
+def draw_scale_figures(out: Path) -> list[Path]:
+    """Draw ``figures/conditioning`` and ``figures/costs`` from the files `run_scale` wrote in ``out``
+    (so a figure shows exactly the stored numbers, and can be redrawn without recomputing them)."""
+    from qgp.reports.scale_figures import conditioning_figure, costs_figure
+    from qgp.scale.growth import GrowthFit
+
+    out = Path(out)
+    doc = json.loads((out / SCALE_FILE).read_text(encoding="utf-8"))
+    fits = {q: (GrowthFit(**f) if "exponent" in f else f.get("skipped", "")) for q, f in doc["fits"].items()}
+    paths = conditioning_figure(_read_csv_rows(out / CONDITIONING_FILE), fits, doc, out / FIGURES_DIR / "conditioning")
+    return paths + costs_figure(_read_csv_rows(out / COSTS_FILE), doc, out / FIGURES_DIR / "costs")
 
 
 def _versus_bound(fit) -> str:
@@ -262,9 +291,11 @@ def _assumptions(sc, surface, flop_rate: float, flop_source: str) -> dict:
         "readout": "amplitude estimation, 2⌈2πκ/ε⌉ + 1 circuit applications per estimate (Brassard et al. 2002, Thm 12); "
         "shots (κ/ε)² in quantum_seconds_shots",
         "readout_amplitude": "a = 1/κ (worst case of the inversion's normalisation C ≈ λ_min; Harrow, Hassidim & Lloyd 2009)",
-        "block_encoding": "sparse access with α = s·‖A‖_max; oracles as table lookups of the n·s stored entries (qgp.scale.fault_tolerant)",
+        "block_encoding": "sparse access with α = s·‖A‖_max (s padded to a power of two); oracles as select-swap table "
+        f"lookups of the n·s stored entries, banks ≤ {LOOKUP_QUBIT_CAP} qubits (qgp.scale.fault_tolerant)",
         "state_preparation": "y and k* once per circuit application (qgp.scale.fault_tolerant.state_preparation_cost)",
         "surface_code": asdict(surface),
+        "surface_code_layout": f"Litinski 2019 {surface.layout} data block, 15-to-1 factories; 0.1·(100p)^((d+1)/2) per patch and cycle",
         "classical_flop_rate": flop_rate,
         "classical_flop_rate_source": flop_source,
         "classical": "dense Cholesky n³/3 + per-point solves, or conjugate gradients with √κ-bounded iterations on nnz = n·s "

@@ -64,7 +64,7 @@ def conditioning_figure(rows, fits: dict, doc: dict, stem: Path) -> list[Path]:
         if ok.any():
             n0, k0 = n[ok][0], kappa[ok][0]
             grid = np.geomspace(n[ok].min(), n[ok].max(), 20)
-            ax.plot(grid, k0 * grid / n0, color=_GREY, lw=0.8, ls=":", label="∝ n (lower bound)")
+            ax.plot(grid, k0 * grid / n0, color=_GREY, lw=0.8, ls=":", label="∝ n (lower bound, Lowe et al. 2025)")
         ax.axhline(doc["target_condition"], color=PALETTE[1], lw=0.8, ls="-.", label=f"target κ = {doc['target_condition']:g}")
         ax.set(xscale="log", yscale="log", xlabel="training points n", ylabel="condition number κ of K + σ²I",
                title="(a) κ" + _fit_label(fits.get("condition_number")))
@@ -80,7 +80,7 @@ def conditioning_figure(rows, fits: dict, doc: dict, stem: Path) -> list[Path]:
                 ax.plot(n, v, "o", ms=3, color=colour, label=label + _fit_label(fits.get(name)))
                 _fit_line(ax, fits.get(name), n[np.isfinite(v)], colour)
         ax.set(xscale="log", yscale="log", xlabel="training points n", ylabel="value", title="(b) sparsity, norm, α")
-        ax.legend(frameon=False, loc="upper left", fontsize=6)
+        ax.legend(frameon=False, loc="lower right", fontsize=6)
 
         ax = axes[2]
         rmse_fixed = _column(rows, "holdout_rmse")
@@ -88,7 +88,7 @@ def conditioning_figure(rows, fits: dict, doc: dict, stem: Path) -> list[Path]:
         if np.isfinite(rmse_fixed).any() or np.isfinite(rmse_target).any():
             ax.plot(n, rmse_fixed, "o-", ms=3, color=PALETTE[0], label=f"σ² = {doc['noise_variance']:g} (fixed)")
             ax.plot(n, rmse_target, "s--", ms=3, color=PALETTE[1], label=f"σ² for κ = {doc['target_condition']:g}")
-            ax.set_ylabel("held-out RMSE")
+            ax.set_ylabel("held-out RMSE (target's units)")
             ax.legend(frameon=False, loc="upper right")
         else:
             ax.text(0.5, 0.5, "no held-out data with a target\n(add [data] test with the target column)",
@@ -140,19 +140,22 @@ def costs_figure(costs, doc: dict, stem: Path) -> list[Path]:
         ax_t.plot(n, [r.classical_cg_seconds for r in first], "--", color="black", lw=1.6, label="classical: conjugate gradients")
         ax_t.set(xscale="log", yscale="log", xlabel="training points n", ylabel="time to solution (s)",
                  title="(a) time to solution")
-        ax_t.legend(frameon=False, loc="upper left", fontsize=6)
+        handles, labels = ax_t.get_legend_handles_labels()
         ax_q.set(xscale="log", yscale="log", xlabel="training points n", ylabel="physical qubits", title="(b) surface-code footprint")
+        kfit = doc["fits"]["condition_number"]
         cross_text = "; ".join(f"{k}: {v}" for k, v in doc["crossover_text"].items())
         caption = (
-            f"Crossover (quantum faster than the best classical): {cross_text}. Laws fitted to {doc['data']['rows']} rows "
+            f"Crossover (quantum faster than the best classical): {cross_text}. Growth laws fitted on n = "
+            f"{kfit.get('n_min', '?')}…{kfit.get('n_max', '?')} of {doc['data']['rows']} rows "
             f"({doc['kernel'].get('family', '')}, σ² = {doc['noise_variance']:g}): "
-            f"κ ∝ n^{doc['fits']['condition_number'].get('exponent', float('nan')):.2f}. "
+            f"κ ∝ n^{kfit.get('exponent', float('nan')):.2f}. "
             f"ε = {a['relative_error']:g} per estimate, {a['test_points']} test point(s), mean and variance. "
             f"Block encoding: {a['block_encoding']}. Read-out: {a['readout']}; a = 1/κ. "
-            f"Surface code: physical error {sc['physical_error']:g}, cycle {sc['cycle_seconds']:g} s, failure budget "
-            f"{sc['failure_budget']:g}. Classical: {a['classical_flop_rate']:.3g} flop/s ({a['classical_flop_rate_source']}). "
+            f"Surface code ({a['surface_code_layout']}): physical error {sc['physical_error']:g}, cycle "
+            f"{sc['cycle_seconds']:g} s, failure budget {sc['failure_budget']:g}. Classical: {a['classical_flop_rate']:.3g} flop/s ({a['classical_flop_rate_source']}). "
             f"Omitted: {a['omitted']}. {doc['caveat']}"
         )
-        fig.tight_layout(rect=(0, 0.3, 1, 1))
+        fig.tight_layout(rect=(0, 0.36, 1, 1))
+        fig.legend(handles, labels, loc="lower center", bbox_to_anchor=(0.5, 0.22), ncol=3, frameon=False, fontsize=6.5)
         fig.text(0.01, 0.01, textwrap.fill(caption, 150), fontsize=5.5, va="bottom", ha="left")
         return save_figure(fig, stem)
