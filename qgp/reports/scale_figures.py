@@ -68,7 +68,7 @@ def conditioning_figure(rows, fits: dict, doc: dict, stem: Path) -> list[Path]:
         ax.axhline(doc["target_condition"], color=PALETTE[1], lw=0.8, ls="-.", label=f"target κ = {doc['target_condition']:g}")
         ax.set(xscale="log", yscale="log", xlabel="training points n", ylabel="condition number κ of K + σ²I",
                title="(a) κ" + _fit_label(fits.get("condition_number")))
-        ax.legend(frameon=False, loc="upper left")
+        ax.legend(frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.3), fontsize=6)
 
         ax = axes[1]
         for i, (name, label) in enumerate(
@@ -80,7 +80,7 @@ def conditioning_figure(rows, fits: dict, doc: dict, stem: Path) -> list[Path]:
                 ax.plot(n, v, "o", ms=3, color=colour, label=label + _fit_label(fits.get(name)))
                 _fit_line(ax, fits.get(name), n[np.isfinite(v)], colour)
         ax.set(xscale="log", yscale="log", xlabel="training points n", ylabel="value", title="(b) sparsity, norm, α")
-        ax.legend(frameon=False, loc="lower right", fontsize=6)
+        ax.legend(frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.3), fontsize=6)
 
         ax = axes[2]
         rmse_fixed = _column(rows, "holdout_rmse")
@@ -89,7 +89,7 @@ def conditioning_figure(rows, fits: dict, doc: dict, stem: Path) -> list[Path]:
             ax.plot(n, rmse_fixed, "o-", ms=3, color=PALETTE[0], label=f"σ² = {doc['noise_variance']:g} (fixed)")
             ax.plot(n, rmse_target, "s--", ms=3, color=PALETTE[1], label=f"σ² for κ = {doc['target_condition']:g}")
             ax.set_ylabel("held-out RMSE (target's units)")
-            ax.legend(frameon=False, loc="upper right")
+            ax.legend(frameon=False, loc="upper center", bbox_to_anchor=(0.5, -0.3), fontsize=6)
         else:
             ax.text(0.5, 0.5, "no held-out data with a target\n(add [data] test with the target column)",
                     ha="center", va="center", transform=ax.transAxes)
