@@ -98,6 +98,11 @@ def conditioning_figure(rows, fits: dict, doc: dict, stem: Path) -> list[Path]:
         return save_figure(fig, stem)
 
 
+def _kernel_text(kernel: dict) -> str:
+    text = f"{kernel.get('family', '')}, lengthscale {kernel.get('lengthscale')}"
+    return text + (f", tapered at {kernel['support']:g}" if kernel.get("support") else "")
+
+
 def costs_figure(costs, doc: dict, stem: Path) -> list[Path]:
     """Time-to-solution and physical qubits against n: quantum methods beside the classical GP.
 
@@ -147,7 +152,7 @@ def costs_figure(costs, doc: dict, stem: Path) -> list[Path]:
         caption = (
             f"Crossover (quantum faster than the best classical): {cross_text}. Growth laws fitted on n = "
             f"{kfit.get('n_min', '?')}…{kfit.get('n_max', '?')} of {doc['data']['rows']} rows "
-            f"({doc['kernel'].get('family', '')}, σ² = {doc['noise_variance']:g}): "
+            f"({_kernel_text(doc['kernel'])}, σ² = {doc['noise_variance']:g}): "
             f"κ ∝ n^{kfit.get('exponent', float('nan')):.2f}. "
             f"ε = {a['relative_error']:g} per estimate, {a['test_points']} test point(s), mean and variance. "
             f"Block encoding: {a['block_encoding']}. Read-out: {a['readout']}; a = 1/κ. "
