@@ -471,9 +471,18 @@ def _sparse_build_refusal(kernel: Kernel, X: np.ndarray) -> str | None:
 
 
 def _matrix_measures(A, kernel: Kernel, noise: float, lower_bound: float, lcu_limit: int, exact_limit: int) -> dict:
-    """Every matrix quantity of the row from A (dense or sparse), and what the note should add."""
+    """Every matrix quantity of the row from A (dense or sparse), and what the note should add.
+
+    A Lanczos failure (QgpError) leaves the spectral values None with the reason in the note, so one
+    size cannot abort a long audit; the counts and norms need no eigensolve and are kept.
+    """
     n = A.shape[0]
-    spectrum = extreme_eigenvalues(A, lower_bound=lower_bound, exact_limit=exact_limit)
+    notes = []
+    try:
+        spectrum = extreme_eigenvalues(A, lower_bound=lower_bound, exact_limit=exact_limit)
+    except QgpError as err:
+        spectrum = None
+        notes.append(f"skipped: no eigenvalues at n = {n}: {err}")
     if sp.issparse(A):
         A = sp.csr_array(A)
         A.eliminate_zeros()
@@ -492,8 +501,7 @@ def _matrix_measures(A, kernel: Kernel, noise: float, lower_bound: float, lcu_li
     else:
         sparsity, nonzeros = int(per_row.max()), int(per_row.sum())
     diagonal = padding_diagonal(kernel.amplitude, noise)
-    lam_max = spectrum.eigenvalue_max
-    notes = []
+    lam_max = None if spectrum is None else spectrum.eigenvalue_max
     alpha_lcu = None
     if n <= lcu_limit:
         from qgp.circuits.methods.encodings import get_encoding  # qiskit: loaded only when needed
@@ -504,23 +512,33 @@ def _matrix_measures(A, kernel: Kernel, noise: float, lower_bound: float, lcu_li
         alpha_lcu = get_encoding("lcu").alpha(padded)
     else:
         # The same α without padding or densifying: the padded rows' sums are d = a + σ² = A_ii ≤ any
-        # row sum of A, so max(row sums of A, d, λmax) is the padded matrix's max(row-sum bound, λmax).
-        alpha_dilation = max(float(row_sums.max()), diagonal, lam_max)
+        # row sum of A, so max(row sums of A, d, λmax) is the padded matrix's max(row-sum bound, λmax)
+        # (λmax ≤ the row-sum bound by Gershgorin; it only guards round-off, so it may be unknown).
+        alpha_dilation = max(float(row_sums.max()), diagonal, lam_max or 0.0)
         notes.append(f"LCU α not computed above n = {lcu_limit} (4^m Pauli terms of the {padded_size(n)}-row padding)")
-    values = {
-        "condition_number": lam_max / spectrum.eigenvalue_min,
-        "eigenvalue_min": spectrum.eigenvalue_min,
-        "eigenvalue_max": lam_max,
-        "sparsity": sparsity,
-        "nonzeros": nonzeros,
-        "norm_max": norm_max,
-        "norm_two": lam_max,
-        "norm_frobenius": frobenius,
-        "alpha_dilation": float(alpha_dilation),
-        "alpha_lcu": None if alpha_lcu is None else float(alpha_lcu),
-        "alpha_sparse_access": sparsity * norm_max,
+    values = dict.fromkeys(_MATRIX_FIELDS)
+    values.update(
+        sparsity=sparsity,
+        nonzeros=nonzeros,
+        norm_max=norm_max,
+        norm_frobenius=frobenius,
+        alpha_dilation=float(alpha_dilation),
+        alpha_lcu=None if alpha_lcu is None else float(alpha_lcu),
+        alpha_sparse_access=sparsity * norm_max,
+    )
+    if spectrum is not None:
+        values.update(
+            condition_number=lam_max / spectrum.eigenvalue_min,
+            eigenvalue_min=spectrum.eigenvalue_min,
+            eigenvalue_max=lam_max,
+            norm_two=lam_max,
+        )
+    return {
+        "values": values,
+        "method": "skipped" if spectrum is None else spectrum.method,
+        "notes": notes,
+        "gp": True,  # the matrix could be built, so the GP's own copy can be too
     }
-    return {"values": values, "method": spectrum.method, "notes": notes}
 
 
 def _skipped_dense_measures(kernel: Kernel, X: np.ndarray, noise: float, exact_limit: int) -> dict:
@@ -536,7 +554,22 @@ def _skipped_dense_measures(kernel: Kernel, X: np.ndarray, noise: float, exact_l
         f"{exact_limit} (the matrix alone would need {gib:.3g} GiB); κ, eigenvalues, ‖A‖₂, ‖A‖_F, α and the "
         "held-out scores are not computed; taper the kernel (Tapered, or [kernel] support) for a Lanczos estimate"
     )
-    return {"values": values, "method": "skipped", "notes": [note]}
+    return {"values": values, "method": "skipped", "notes": [note], "gp": False}
+
+
+def _sparse_measures(kernel: Kernel, X: np.ndarray, noise: float, lcu_limit: int, exact_limit: int) -> dict:
+    """The row's matrix values from the sparse A, or a skipped row when it cannot be built."""
+    n = X.shape[0]
+    refusal = _sparse_build_refusal(kernel, X)
+    if refusal is None:
+        try:
+            A = sp.csr_array(kernel.sparse(X) + noise * sp.eye_array(n, format="csr"))
+        except MemoryError:
+            refusal = f"skipped: building the sparse A ran out of memory at n = {n}; use a smaller support or fewer points"
+    if refusal is not None:
+        return {"values": dict.fromkeys(_MATRIX_FIELDS), "method": "skipped", "notes": [refusal], "gp": False}
+    # A is dropped on return, before the GP builds its own copy.
+    return _matrix_measures(A, kernel, noise, noise, lcu_limit, exact_limit)
 
 
 def _gp_method(kernel: Kernel, n: int, nonzeros: int | None, exact_limit: int) -> str:
@@ -620,18 +653,11 @@ def audit_size(
     elif kernel.support_radius is None:
         measured = _skipped_dense_measures(kernel, X, noise, exact_limit)
     else:
-        refusal = _sparse_build_refusal(kernel, X)
-        if refusal is None:
-            A = sp.csr_array(kernel.sparse(X) + noise * sp.eye_array(n, format="csr"))
-            measured = _matrix_measures(A, kernel, noise, noise, lcu_limit, exact_limit)
-            del A  # free it before the GP builds its own copy
-        else:
-            measured = {"values": dict.fromkeys(_MATRIX_FIELDS), "method": "skipped", "notes": [refusal]}
+        measured = _sparse_measures(kernel, X, noise, lcu_limit, exact_limit)
     values, notes = measured["values"], measured["notes"]
-    skipped = measured["method"] == "skipped"
 
     values["noise_variance_for_target"] = None
-    if target is not None and not skipped:
+    if target is not None and values["eigenvalue_min"] is not None:
         try:
             values["noise_variance_for_target"] = noise_for_condition(
                 values["eigenvalue_min"] - noise, values["eigenvalue_max"] - noise, target
@@ -642,8 +668,8 @@ def audit_size(
             notes.append(f"target κ = {target:g} is at or above K's own κ ({kernel_kappa:.4g}): no σ² ≥ 0 reaches it")
 
     scores = dict.fromkeys(("holdout_rmse", "holdout_nlpd", "holdout_rmse_at_target", "holdout_nlpd_at_target"))
-    if X_hold is not None and skipped:
-        notes.append("held-out scores not computed (the matrix was skipped)")
+    if X_hold is not None and not measured["gp"]:
+        notes.append("held-out scores not computed (the matrix was not built)")
     elif X_hold is not None:
         method = _gp_method(kernel, n, values["nonzeros"], exact_limit)
         pairs = [(noise, "holdout_rmse", "holdout_nlpd")]

@@ -284,6 +284,20 @@ def test_a_sparse_matrix_over_the_memory_cap_is_skipped_before_it_is_built(monke
     assert "GiB" in row.note and "smaller support" in row.note, row.note
 
 
+def test_a_failed_eigensolve_skips_the_spectrum_but_keeps_the_counts(monkeypatch):
+    # Reference: numpy's direct count on the dense matrix; the failure is forced.
+    def fail(*args, **kwargs):
+        raise QgpError("Lanczos did not converge (forced)")
+
+    monkeypatch.setattr(conditioning, "extreme_eigenvalues", fail)
+    kernel, X, noise = LANCZOS_CASES["wendland-2d"]
+    row = audit_size(X[:300], np.zeros(300), kernel, noise, target_condition=10.0, exact_limit=128)
+    A = _dense_A(kernel, X[:300], noise)
+    assert row.condition_method == "skipped" and row.condition_number is None and row.noise_variance_for_target is None
+    assert (row.sparsity, row.nonzeros) == (int(np.max(np.count_nonzero(A, axis=1))), int(np.count_nonzero(A)))
+    assert "forced" in row.note, row.note
+
+
 # -- sizes, subsets, the whole audit -----------------------------------------------------------------
 
 
