@@ -80,7 +80,7 @@ LANCZOS_RTOL = 1e-9
 # keys, COO → CSR): 112 B measured at 8.6e6 and 3.4e7 non-zeros; rounded up.
 _BUILD_BYTES_PER_NONZERO = 120
 # ARPACK tolerances: the first shift-invert pass, and λmax's pass (the top of a kernel spectrum is
-# well separated; 1e-10 converged in < 0.1 s in every case measured).
+# well separated: 1e-10 converged in every case measured, in 2 s at n = 65536 with 1e7 non-zeros).
 _FIRST_PASS_TOL = 1e-3
 _TOP_TOL = 1e-10
 # The shift s = floor − δ sits δ below the known lower bound: δ ≥ this many units of round-off in

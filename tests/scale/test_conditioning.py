@@ -384,7 +384,7 @@ def test_bad_input_is_refused_with_the_fix():
 @pytest.mark.slow
 def test_lanczos_beyond_the_exact_limit_matches_lapack():
     # Reference: numpy.linalg.eigvalsh (LAPACK) on the densified matrix at n = EXACT_LIMIT + 808
-    # (≈ 1 min): the default path, Lanczos, at a size just past the dense one.
+    # (1–2 min): the default path, Lanczos, at a size just past the dense one.
     n = EXACT_LIMIT + 808
     X = np.random.default_rng(9).uniform(0.0, 400.0, size=(n, 1))
     kernel, noise = Wendland(amplitude=16.0, lengthscale=3.0), 2.25
