@@ -379,6 +379,8 @@ def _parse_scale(v: _Validator, t: dict) -> ScaleSettings:
         failure_budget=v.number(t, "scale", "failure_budget", d.failure_budget, gt=0.0),
         classical_flop_rate=v.number(t, "scale", "classical_flop_rate", None, positive=True),
     )
+    if values["n_min"] & (values["n_min"] - 1):
+        raise v.fail("scale", "n_min", f"= {values['n_min']} is not a power of two; the audit doubles n from it (use e.g. 64)")
     if values["n_max"] < values["n_min"]:
         raise v.fail("scale", "n_max", f"= {values['n_max']} is below n_min = {values['n_min']}; raise n_max or lower n_min")
     if values["cost_n_max"] <= values["cost_n_min"]:

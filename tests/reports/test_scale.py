@@ -144,6 +144,10 @@ def test_scale_needs_a_fixed_noise_variance(tmp_path):
 def test_bad_scale_keys_are_one_line_errors(tmp_path):
     with pytest.raises(QgpError, match="cost_n_max"):
         load_config(_config(tmp_path, extra="cost_n_max = 50"))
+    path = _config(tmp_path)
+    path.write_text(path.read_text().replace("n_min = 64", "n_min = 100"))
+    with pytest.raises(QgpError, match="power of two"):
+        load_config(path)
     with pytest.raises(QgpError, match="physical_error"):
         load_config(_config(tmp_path, extra="physical_error = 0.02"))
 
