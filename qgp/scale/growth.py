@@ -97,9 +97,10 @@ def fit_growth(n, values, *, quantity: str, confidence: float = 0.95, n_min: int
         raise QgpError(f"confidence must be a number in (0, 1), got {confidence!r}; e.g. 0.95")
     n_used, v_used = _fit_points(n, values, n_min)
     if n_used.size < _MIN_POINTS:
+        where = "" if n_min is None else f" with n ≥ {n_min}"
         raise QgpError(
-            f"a growth fit of {quantity} needs at least {_MIN_POINTS} points with n ≥ {n_min or 0} and a finite "
-            f"positive value, got {n_used.size}; audit more sizes or lower n_min"
+            f"a growth fit of {quantity} needs at least {_MIN_POINTS} points{where} and a finite positive value, "
+            f"got {n_used.size}; audit more sizes" + ("" if n_min is None else " or lower n_min")
         )
     x, z = np.log(n_used), np.log(v_used)
     x_mean = x.mean()
