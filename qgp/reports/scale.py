@@ -194,6 +194,9 @@ def run_scale(
         sizes=sizes, order_index=index, target_condition=sc.target_condition,
         X_holdout=holdout[0], y_holdout=holdout[1], center=cfg.data.center, say=say,
     )
+    # Written at once: the audit is the long part, and a later failure must not lose it.
+    out.mkdir(parents=True, exist_ok=True)
+    _write_csv(out / CONDITIONING_FILE, CONDITIONING_COLUMNS, rows)
     fits = _fits(rows)
     laws = _laws(fits, kernel, noise)
     if sc.classical_flop_rate is None:
@@ -210,8 +213,6 @@ def run_scale(
     sizes_cost = cost_sizes(sc.cost_n_min, sc.cost_n_max, sc.cost_points_per_decade)
     costs = cost_table(laws, sizes_cost, relative_error=sc.relative_error, test_points=sc.test_points, surface=surface, flop_rate=flop_rate)
     cross = crossovers(costs)
-    out.mkdir(parents=True, exist_ok=True)
-    _write_csv(out / CONDITIONING_FILE, CONDITIONING_COLUMNS, rows)
     _write_csv(out / COSTS_FILE, COST_COLUMNS, costs)
     doc = {
         "schema": SCALE_SCHEMA,

@@ -162,3 +162,13 @@ def test_cli_scale_writes_the_files_and_prints_the_exponents(tmp_path, capsys):
     assert doc["data"]["order"] == "file"
     assert not (tmp_path / "o" / "figures").exists()
     assert math.isfinite(doc["fits"]["condition_number"]["exponent"])
+
+
+def test_the_audit_is_kept_when_a_later_step_fails(tmp_path):
+    # Two sizes cannot give a growth law, so the cost step refuses — after conditioning.csv is written.
+    path = _config(tmp_path)
+    path.write_text(path.read_text().replace("n_max = 512", "n_max = 128"))
+    with pytest.raises(QgpError, match="at least 3"):
+        run_scale(load_config(path), tmp_path / "out", quiet=True, figures=False)
+    assert [int(r["n"]) for r in _rows(tmp_path / "out" / "conditioning.csv")] == [64, 128]
+    assert not (tmp_path / "out" / "scale.json").exists()
