@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import csv
 import json
-import math
 import sys
 import time
 from dataclasses import asdict, replace
@@ -174,7 +173,7 @@ def run_scale(
     dict
         The scale.json document.
     """
-    from qgp.reports.run import config_inputs
+    from qgp.reports.run import config_inputs, to_json
 
     start = time.perf_counter()
     noise = _check(cfg)
@@ -234,7 +233,7 @@ def run_scale(
         "seconds": None,
     }
     doc["seconds"] = round(time.perf_counter() - start, 3)
-    atomic_write_text(out / SCALE_FILE, json.dumps(_finite(doc), indent=2, ensure_ascii=False) + "\n")
+    atomic_write_text(out / SCALE_FILE, json.dumps(to_json(doc), indent=2, ensure_ascii=False) + "\n")
     if figures:
         draw_scale_figures(out)
     if say:
@@ -305,15 +304,3 @@ def _assumptions(sc, surface, flop_rate: float, flop_source: str) -> dict:
         "probability (the quantum costs are lower bounds in these respects)",
     }
 
-
-def _finite(x):
-    """JSON has no NaN or infinity: write them as null."""
-    if isinstance(x, dict):
-        return {k: _finite(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_finite(v) for v in x]
-    if isinstance(x, (float, np.floating)):
-        return float(x) if math.isfinite(x) else None
-    if isinstance(x, np.integer):
-        return int(x)
-    return x
