@@ -337,7 +337,7 @@ def residual_degree(condition_number: float, target_error: float) -> int:
     """
     kappa = _check_kappa(condition_number)
     eps = _check_target(target_error)
-    return 2 * max(1, math.ceil(math.acosh(1.0 / eps) / _log_rho(1.0 / kappa))) - 1
+    return 2 * max(1, math.ceil(_residual_half_degree(1.0 / kappa, eps))) - 1
 
 
 def optimal_degree(condition_number: float, target_error: float) -> int:
@@ -440,12 +440,17 @@ def _optimal_error(a: float, n: int) -> float:
     return math.exp(n * math.log1p(-a) - (n - 1) * math.log1p(a))
 
 
+def _residual_half_degree(a: float, eps: float) -> float:
+    """k with 1/cosh(k ln ρ) = ε: the Chebyshev residual's relative error at degree 2k − 1 is ε."""
+    return math.acosh(1.0 / eps) / _log_rho(a)
+
+
 def _inverse_degree_for(kappa: float, eps: float, construction: str) -> int:
     """Smallest odd degree whose measured relative error is ≤ eps (closed-form start, then checked)."""
     a = 1.0 / kappa
     lr = _log_rho(a)
     if construction == "chebyshev_residual":
-        k_est = math.acosh(1.0 / eps) / lr  # 1/cosh(k ln ρ) ≤ ε
+        k_est = _residual_half_degree(a, eps)
     else:
         k_est = math.log((1.0 + a) / (a * eps)) / lr  # relative error ε_d = (1+a)ρ^−k/a ≤ ε
     if 2.0 * math.ceil(min(k_est, 1e15)) - 1.0 > MAX_DEGREE:
