@@ -38,6 +38,7 @@ __all__ = [
     "FitResult",
     "condition",
     "fit_ml2",
+    "ml2_search_space",
     "rmse",
     "nlpd",
     "count_nonpositive",
@@ -314,6 +315,43 @@ def _negative_lml_and_gradient(params, X, yc, kernel: Kernel, fixed_noise: float
     return -lml, -grad
 
 
+def ml2_search_space(
+    X: np.ndarray, yc: np.ndarray, kernel: Kernel, rng: np.random.Generator, restarts: int, fit_noise: bool
+) -> tuple[np.ndarray, list[np.ndarray]]:
+    """The ML-II log-parameter box and starting points, shared by every ML-II optimiser here.
+
+    Parameters
+    ----------
+    X : ndarray of shape (n, d)
+    yc : ndarray of shape (n,)
+        The (centred) targets; the box for amplitude and σ² scales with their mean square.
+    kernel : Kernel
+        Its own hyperparameters are the first start.
+    rng : numpy.random.Generator
+        Draws ``restarts`` further starts uniformly in the box.
+    restarts : int
+    fit_noise : bool
+        Whether log σ² is the last parameter (its first start: a tenth of the mean square).
+
+    Returns
+    -------
+    bounds : ndarray of shape (p, 2)
+        [lower, upper] of each log-parameter [log a, log ℓ…, (log σ²)].
+    starts : list of ndarray of shape (p,)
+    """
+    if restarts < 0:
+        raise QgpError(f"restarts must be ≥ 0 (got {restarts})")
+    y_scale = float(np.mean(yc * yc))
+    if not y_scale > 0.0:
+        y_scale = 1.0
+    bounds = _log_bounds(kernel, X, y_scale, fit_noise)
+    lo, hi = bounds[:, 0], bounds[:, 1]
+    start = kernel.theta
+    if fit_noise:
+        start = np.append(start, math.log(0.1 * y_scale))
+    return bounds, [np.clip(start, lo, hi)] + [rng.uniform(lo, hi) for _ in range(restarts)]
+
+
 def fit_ml2(
     X,
     y,
@@ -333,21 +371,10 @@ def fit_ml2(
     Uses the dense Cholesky path.
     """
     X, y = _check_data(X, y)
-    if restarts < 0:
-        raise QgpError(f"restarts must be ≥ 0 (got {restarts})")
     fixed_noise = None if noise_variance is None else _check_noise(noise_variance)
     yc = y - (float(np.mean(y)) if center else 0.0)
-    y_scale = float(np.mean(yc * yc))
-    if not y_scale > 0.0:
-        y_scale = 1.0
     fit_noise = fixed_noise is None
-    bounds = _log_bounds(kernel, X, y_scale, fit_noise)
-    lo, hi = bounds[:, 0], bounds[:, 1]
-
-    start = kernel.theta
-    if fit_noise:
-        start = np.append(start, math.log(0.1 * y_scale))
-    starts = [np.clip(start, lo, hi)] + [rng.uniform(lo, hi) for _ in range(restarts)]
+    bounds, starts = ml2_search_space(X, yc, kernel, rng, restarts, fit_noise)
 
     best = None
     for x0 in starts:

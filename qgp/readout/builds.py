@@ -20,7 +20,7 @@ from qgp.classical.system import matrix_key
 from qgp.circuits.phase_estimation import phase_estimation_circuit, phase_oracle
 from qgp.settings import CircuitSettings
 
-__all__ = ["SIMULATED_FORM", "OPERATORS", "clear_caches", "cached", "inversion_key", "cached_pair", "qpe_body", "with_preparation"]
+__all__ = ["SIMULATED_FORM", "OPERATORS", "LOG_DETERMINANT", "clear_caches", "cached", "inversion_key", "cached_pair", "qpe_body", "with_preparation"]
 
 #: The circuit form every simulation uses (fused controlled powers, diagonal rotation); the gate
 #: form is the same operator (tests/circuits/test_inversion.py) and is what resources and exports count.
@@ -31,6 +31,8 @@ _CACHE_SIZE = 8
 _CACHE_LOCK = threading.Lock()
 _INVERSIONS: OrderedDict = OrderedDict()
 OPERATORS: OrderedDict = OrderedDict()
+#: The log-determinant read-outs (qgp.readout.likelihood), keyed like the operators.
+LOG_DETERMINANT: OrderedDict = OrderedDict()
 _QPE_BODIES: OrderedDict = OrderedDict()
 
 
@@ -39,6 +41,7 @@ def clear_caches() -> None:
     with _CACHE_LOCK:
         _INVERSIONS.clear()
         OPERATORS.clear()
+        LOG_DETERMINANT.clear()
         _QPE_BODIES.clear()
 
 

@@ -23,7 +23,7 @@ import numpy as np
 
 from qgp.circuits.methods import get_method
 
-__all__ = ["qpe_weights", "clock_phases", "rotation_amplitudes", "filter_response", "model_operator"]
+__all__ = ["qpe_weights", "clock_phases", "rotation_amplitudes", "filter_response", "model_operator", "clock_expectation"]
 
 
 def qpe_weights(phase, clock_qubits: int) -> np.ndarray:
@@ -76,3 +76,22 @@ def model_operator(inv, A: np.ndarray) -> np.ndarray:
     """V diag(response) Vᵀ: C·Ã⁻¹ for ``inverse``, the flag-probability matrix M for ``inverse_sqrt``."""
     lam, V = np.linalg.eigh(A)
     return (V * filter_response(inv, lam)) @ V.T
+
+
+def clock_expectation(inv, eigenvalues, values) -> np.ndarray:
+    """Σ_k |a_k(φ(λ))|²·values[k] per eigenvalue λ: the mean of a function of the clock value that
+    phase estimation alone (no rotation) reads on an eigenvector of A.
+
+    Parameters
+    ----------
+    inv : InversionCircuit or ClockModel
+        The method, clock size and its t or α (as `clock_phases`).
+    eigenvalues : array_like of shape (n,)
+    values : array_like of shape (2^c,)
+
+    Returns
+    -------
+    ndarray of shape (n,)
+    """
+    w = qpe_weights(clock_phases(inv, np.asarray(eigenvalues, dtype=float).ravel()), inv.settings.clock_qubits)
+    return w @ np.asarray(values, dtype=float)
