@@ -23,6 +23,7 @@ from qgp.settings import (
     CircuitSettings,
     Config,
     DataSpec,
+    FitSettings,
     Encoding,
     EVOLUTION_USES_BLOCK_ENCODING,
     KernelFamily,
@@ -77,6 +78,7 @@ _SECTIONS: dict[str, tuple[str, ...]] = {
         "failure_budget",
         "classical_flop_rate",
     ),
+    "fit": ("sizes", "probes", "restarts", "max_evaluations", "surface_points", "max_condition"),
 }
 
 
@@ -119,8 +121,17 @@ def parse_config(raw: dict[str, Any], *, base_dir: Path, source: Path | None = N
     readout = _parse_readout(v, raw.get("readout", {}))
     gate_noise = _parse_gate_noise(v, raw["gate_noise"]) if "gate_noise" in raw else None
     scale = _parse_scale(v, raw.get("scale", {}))
+    fit = _parse_fit(v, raw.get("fit", {}), circuit)
     return Config(
-        data=data, kernel=kernel, noise=noise, circuit=circuit, readout=readout, gate_noise=gate_noise, scale=scale, source=source
+        data=data,
+        kernel=kernel,
+        noise=noise,
+        circuit=circuit,
+        readout=readout,
+        gate_noise=gate_noise,
+        scale=scale,
+        fit=fit,
+        source=source,
     )
 
 
@@ -393,6 +404,27 @@ def _parse_scale(v: _Validator, t: dict) -> ScaleSettings:
             "scale", "physical_error", f"= {values['physical_error']!r} is not below the surface code's threshold ≈ 1e-2; use e.g. 1e-3"
         )
     return ScaleSettings(**values)
+
+
+def _parse_fit(v: _Validator, t: dict, circuit: CircuitSettings) -> FitSettings:
+    d = FitSettings()
+    sizes = t.get("sizes", list(d.sizes))
+    if not isinstance(sizes, list) or not all(isinstance(x, int) and not isinstance(x, bool) for x in sizes):
+        raise v.fail("fit", "sizes", f"must be a list of integers (clock qubits, or QSVT degrees), got {sizes!r}")
+    qsvt = circuit.method == "qsvt"
+    for x in sizes:
+        if qsvt and (x < 1 or x % 2 == 0):
+            raise v.fail("fit", "sizes", f"has {x}: QSVT sizes are odd inversion degrees ≥ 1 (as [circuit] degree); use {max(1, x + 1 - x % 2)}")
+        if not qsvt and not 2 <= x <= MAX_CLOCK_QUBITS:
+            raise v.fail("fit", "sizes", f"has {x}: clock sizes must lie in 2 … {MAX_CLOCK_QUBITS}")
+    return FitSettings(
+        sizes=tuple(sorted(set(sizes))),
+        probes=v.integer(t, "fit", "probes", d.probes, minimum=0, maximum=100_000),
+        restarts=v.integer(t, "fit", "restarts", d.restarts, minimum=0, maximum=100),
+        max_evaluations=v.integer(t, "fit", "max_evaluations", d.max_evaluations, minimum=10, maximum=100_000),
+        surface_points=v.integer(t, "fit", "surface_points", d.surface_points, minimum=3, maximum=1001),
+        max_condition=v.number(t, "fit", "max_condition", None, gt=1.0),
+    )
 
 
 @dataclass(frozen=True)

@@ -30,6 +30,7 @@ __all__ = [
     "ReadoutSettings",
     "GateNoise",
     "NoiseMethod",
+    "FitSettings",
     "Config",
     "choices",
 ]
@@ -257,6 +258,28 @@ class ScaleSettings:
 
 
 @dataclass(frozen=True)
+class FitSettings:
+    """``[fit]``: the log marginal likelihood from the circuits and ML-II with it (``qgp fit``).
+
+    ``sizes``: the circuit sizes of the error study — clock qubits for phase estimation, the
+    (odd) inversion degree for QSVT (its log polynomial has degree + 1); empty: the config's own
+    size and its neighbours. ``probes``: 0 for the log-determinant on the maximally mixed state,
+    R > 0 for R Rademacher states (Hutchinson). ML-II: Nelder–Mead on the log-hyperparameters from
+    the kernel's own values and ``restarts`` seeded random starts, at most ``max_evaluations``
+    circuit estimates per start, inside a-priori κ_b = λ_hi/λ_lo ≤ ``max_condition`` (None: the
+    config problem's own κ_b — the circuits lose small eigenvalues beyond what they are built for).
+    ``surface_points``: points of each hyperparameter's LML slice.
+    """
+
+    sizes: tuple[int, ...] = ()
+    max_condition: float | None = None
+    probes: int = 0
+    restarts: int = 1
+    max_evaluations: int = 120
+    surface_points: int = 13
+
+
+@dataclass(frozen=True)
 class Config:
     """A whole validated config file. ``source`` is the file it came from (None if built in code)."""
 
@@ -269,4 +292,6 @@ class Config:
     gate_noise: GateNoise | None = None
     #: ``[scale]`` (defaults when the section is absent).
     scale: ScaleSettings = ScaleSettings()
+    #: ``[fit]`` (defaults when the section is absent).
+    fit: FitSettings = FitSettings()
     source: Path | None = None

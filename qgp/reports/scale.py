@@ -241,7 +241,7 @@ def run_scale(
     return doc
 
 
-def _read_csv_rows(path: Path) -> list:
+def read_csv_rows(path: Path) -> list:
     """CSV rows back as objects: numbers as floats, empty cells as None, True/False as booleans."""
     from types import SimpleNamespace
 
@@ -268,8 +268,8 @@ def draw_scale_figures(out: Path) -> list[Path]:
     out = Path(out)
     doc = json.loads((out / SCALE_FILE).read_text(encoding="utf-8"))
     fits = {q: (GrowthFit(**f) if "exponent" in f else f.get("skipped", "")) for q, f in doc["fits"].items()}
-    paths = conditioning_figure(_read_csv_rows(out / CONDITIONING_FILE), fits, doc, out / FIGURES_DIR / "conditioning")
-    return paths + costs_figure(_read_csv_rows(out / COSTS_FILE), doc, out / FIGURES_DIR / "costs")
+    paths = conditioning_figure(read_csv_rows(out / CONDITIONING_FILE), fits, doc, out / FIGURES_DIR / "conditioning")
+    return paths + costs_figure(read_csv_rows(out / COSTS_FILE), doc, out / FIGURES_DIR / "costs")
 
 
 def _versus_bound(fit) -> str:
