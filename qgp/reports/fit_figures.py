@@ -11,6 +11,7 @@ from pathlib import Path
 
 import matplotlib.pyplot as plt
 import numpy as np
+from matplotlib.ticker import NullFormatter
 
 from qgp.reports.figures import PALETTE, figure_style, save_figure
 
@@ -45,12 +46,15 @@ def lml_error_figure(rows, doc: dict, stem: Path) -> list[Path]:
             (r"data fit $\frac{1}{2}y^\top A^{-1}y$", "data_fit", PALETTE[0], "o"),
             (r"$\frac{1}{2}\log\det A$", "log_determinant", PALETTE[1], "s"),
         )
+        shown_model = False
         for label, key, colour, marker in series:
             err = 0.5 * np.abs(_column(rows, f"{key}_quantum") - _column(rows, f"{key}_exact"))
             _errorbar(ax, size, err, 0.5 * _column(rows, f"{key}_se"), color=colour, marker=marker, ms=3.5, lw=1, label=label)
             model = 0.5 * np.abs(_column(rows, f"{key}_model") - _column(rows, f"{key}_exact"))
             if np.isfinite(model).any():
-                ax.plot(size, model, ls="none", marker="+", ms=7, color=colour, label=f"{label.split(' $')[0]} closed-form model" if key == "data_fit" else "closed-form model")
+                ax.plot(size, model, ls="none", marker="+", ms=8, mew=0.8, color=_GREY,
+                        label=None if shown_model else "closed-form model (+)")
+                shown_model = True
         total = np.abs(_column(rows, "lml_quantum") - _column(rows, "lml_exact"))
         _errorbar(ax, size, total, _column(rows, "lml_se"), color=PALETTE[7], marker="D", ms=3, lw=1.2, ls="--", label="log marginal likelihood")
         label = rows[0].label if rows else ""
@@ -74,6 +78,7 @@ def hyperparameter_figure(rows, doc: dict, stem: Path) -> list[Path]:
                 v = ref[name][0] if isinstance(ref[name], list) else ref[name]
                 ax.axhline(v, color=_GREY, ls=style, lw=0.9, label=text)
             ax.set(yscale="log", xlabel=_SIZE_LABEL.get(doc.get("size_name"), "circuit size"), title=_PARAM_LABEL[name])
+            ax.yaxis.set_minor_formatter(NullFormatter())
             ax.set_xticks(size)
         ax = axes[3]
         ax.plot(size, _column(rows, "optimum_test_nlpd"), "o-", ms=3.5, color=PALETTE[0], label="circuit ML-II")
@@ -99,13 +104,21 @@ def surface_figure(rows, doc: dict, stem: Path) -> list[Path]:
             ax.plot(x, _column(sel, "lml_exact"), "-", color=_GREY, lw=1.2, label="exact")
             _errorbar(ax, x, _column(sel, "lml_quantum"), _column(sel, "lml_se"), color=PALETTE[1], marker="o", ms=3, ls="none", label="circuits")
             outside = np.array([r.within_limit is False for r in sel])
-            if outside.any():
-                for xi in x[outside]:
-                    ax.axvspan(xi / 1.1, xi * 1.1, color=PALETTE[5], alpha=0.15, lw=0)
+            if outside.any() and x.size > 1:
+                # Each point's cell of the log grid: geometric midpoints to its neighbours.
+                edges = np.sqrt(x[1:] * x[:-1])
+                lo = np.r_[x[0] ** 2 / edges[0], edges]
+                hi = np.r_[edges, x[-1] ** 2 / edges[-1]]
+                for a, b in zip(lo[outside], hi[outside]):
+                    ax.axvspan(a, b, color=PALETTE[5], alpha=0.2, lw=0)
             v = control[name][0] if isinstance(control[name], list) else control[name]
             ax.axvline(v, color=PALETTE[0], ls="--", lw=0.8)
             ax.set(xscale="log", xlabel=_PARAM_LABEL[name], ylabel="log marginal likelihood" if name == "lengthscale" else None)
+            ax.xaxis.set_minor_formatter(NullFormatter())
         axes[0].legend(frameon=False, fontsize=6, title=r"shaded: $\kappa_b$ above the limit", title_fontsize=6)
-        fig.suptitle(f"LML slices through the exact optimum within the κ limit (dashed), n = {doc['n_train']}", fontsize=8)
+        circ = doc["log_marginal_likelihood"]["circuit"]
+        size = ", ".join(f"{k.replace('_', ' ')} {v}" for k, v in circ.items() if k in ("clock_qubits", "degree"))
+        fig.suptitle(f"LML slices through the exact optimum within the κ limit (dashed); circuits: {circ['label']}, {size}; "
+                     f"n = {doc['n_train']}", fontsize=8)
         fig.tight_layout()
         return save_figure(fig, stem)
