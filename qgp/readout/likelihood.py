@@ -20,7 +20,8 @@ Any read-out strategy (qgp.readout.strategies) gives them.
   half is maximally mixed), or several runs of a split register when that does not fit.
 * QSVT: the Hadamard test of the even polynomial p(A/α) ≈ h·log(b/x)/log(b/a)
   (qgp.circuits.log_polynomial); outcomes (probe 0 ∧ Π, probe 1 ∧ Π, fail) with values
-  n·[log(αb) − (log(b/a)/h)·(+1, −1, 0)], so the expectation is n·log(αb) − (log(b/a)/h)·tr p/… per row.
+  n·[log(αb) − (log(b/a)/h)·(+1, −1, 0)]: row j gives P₀ − P₁ = p(A/α)_jj, so the mixed state's
+  expectation is n·log(αb) − (log(b/a)/h)·tr p(A/α) = Σ_i [log(αb) − (log(b/a)/h)·p(λ_i/α)].
 
 With ``probes`` = R > 0 the input is instead R random Rademacher states ẑ = z/√n, z ∈ {±1}ⁿ
 (Hutchinson, Commun. Stat. Simul. Comput. 19, 433 (1990)): each gives an unbiased estimate of the
@@ -210,14 +211,15 @@ def _reference_width(width: int, m: int, cap: int) -> int:
     return 0
 
 
-def _reference_columns(target, m: int, cap: int, reduce, say: Progress) -> list:
+def _reference_columns(target, m: int, cap: int, reduce, say: Progress, project: dict | None = None) -> list:
     """Run ``target`` (anything with ``circuit`` and ``n_system_qubits``) with a reference register
-    over its system input, split into as many runs as ``cap`` needs; ``reduce(r, state)`` per run."""
+    over its system input, split into as many runs as ``cap`` needs; ``reduce(r, state)`` per run
+    (``project``: see `qgp.readout.simulate.run_statevectors`)."""
     r = _reference_width(target.circuit.num_qubits, m, cap)
     if r < m:
         say(f"reference register split into {2 ** (m - r)} runs of 2^{r} columns")
     circuits = [reference_circuit(target, r, v) for v in range(2 ** (m - r))]
-    return run_statevectors(circuits, cap=cap, reduce=lambda i, sv: reduce(r, sv))
+    return run_statevectors(circuits, cap=cap, reduce=lambda i, sv: reduce(r, sv), project=project)
 
 
 def _phase_estimation_readout(problem, circuit, A, bounds, inv, cap, say) -> LogDeterminantReadout:
@@ -262,10 +264,7 @@ def _qsvt_readout(problem, circuit, A, bounds, cap, say) -> LogDeterminantReadou
     def reduce(r, amps):
         return (np.asarray(amps).reshape(2**r, 2**m) * math.sqrt(2**r)).T
 
-    r = _reference_width(lc.circuit.num_qubits, m, cap)
-    circuits = [reference_circuit(lc, r, v) for v in range(2 ** (m - r))]
-    cols = run_statevectors(circuits, cap=cap, reduce=lambda i, amps: reduce(r, amps), project=project)
-    B = np.concatenate(cols, axis=1)
+    B = np.concatenate(_reference_columns(lc, m, cap, reduce, say, project), axis=1)
     n = problem.n_train
     poly = lc.polynomial
     slope = math.log(poly.upper / poly.lower) / poly.height
