@@ -49,3 +49,13 @@ for entry in "scale_rbf --demo" "scale_tapered $here/scale_tapered.toml"; do
   cp "$run_dir/$name"/{conditioning.csv,costs.csv,scale.json} "$here/results/$name/"
   echo "$name: $((SECONDS - start)) s -> $run_dir/$name/figures/{conditioning,costs}.{pdf,png}"
 done
+
+# Training (`qgp fit`): the log marginal likelihood from the circuits and circuit ML-II, on the demo and on
+# scikit-learn's diabetes data, for phase estimation with the walk and the exact oracle and for QSVT.
+for name in fit_demo_walk fit_demo_exact fit_demo_qsvt fit_diabetes_walk fit_diabetes_exact fit_diabetes_qsvt; do
+  start=$SECONDS
+  qgp fit "$here/$name.toml" --out "$run_dir/$name" --force
+  mkdir -p "$here/results/$name"
+  cp "$run_dir/$name"/{fit.json,sizes.csv,surface.csv} "$here/results/$name/"
+  echo "$name: $((SECONDS - start)) s -> $run_dir/$name/figures/{lml_error,hyperparameters,surface}.{pdf,png}"
+done
