@@ -18,7 +18,7 @@ from qgp.reports.figures import PALETTE, figure_style, save_figure
 __all__ = ["lml_error_figure", "hyperparameter_figure", "surface_figure"]
 
 _GREY = "#555555"
-_SIZE_LABEL = {"clock_qubits": "clock qubits c", "degree": "log-polynomial degree d"}
+_SIZE_LABEL = {"clock_qubits": "clock qubits c", "degree": r"degree d of the log and $A^{-1/2}$ polynomials"}
 _PARAM_LABEL = {
     "lengthscale": r"lengthscale $\ell$",
     "signal_variance": r"signal variance $s^2$",
