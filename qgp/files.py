@@ -31,6 +31,7 @@ __all__ = [
     "check_outputs",
     "check_output_file",
     "same_file",
+    "figure_files",
 ]
 
 
@@ -165,3 +166,9 @@ def check_outputs(
             f"{option} {out} already holds {shown}{more}; choose another folder or pass --force to overwrite"
         )
     return out
+
+
+def figure_files(folder: str, stems) -> list[str]:
+    """The names a report's figures take in its output folder: ``folder/stem.pdf`` and ``folder/stem.png``
+    for each stem (what `qgp.reports.figures.save_figure` writes), for `check_outputs`."""
+    return [f"{folder}/{stem}.{ext}" for stem in stems for ext in ("pdf", "png")]

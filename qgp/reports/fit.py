@@ -27,7 +27,7 @@ import numpy as np
 from qgp.classical.gp import condition, fit_ml2, nlpd, rmse
 from qgp.classical.problem import problem_from_config
 from qgp.errors import QgpError
-from qgp.files import atomic_open, atomic_write_text, check_outputs
+from qgp.files import atomic_open, atomic_write_text, check_outputs, figure_files
 from qgp.readout.likelihood import estimate_log_marginal_likelihood
 from qgp.readout.training import circuit_problem, fit_ml2_circuit
 from qgp.reports.run import config_inputs, to_json
@@ -75,7 +75,7 @@ def fit_outputs(figures: bool = True) -> tuple[str, ...]:
     """The names `run_fit` writes into its folder."""
     names = [FIT_FILE, SIZES_FILE, SURFACE_FILE]
     if figures:
-        names += [f"{FIGURES_DIR}/{stem}.{ext}" for stem in FIGURE_STEMS for ext in ("pdf", "png")]
+        names += figure_files(FIGURES_DIR, FIGURE_STEMS)
     return tuple(names)
 
 

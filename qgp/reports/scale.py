@@ -22,7 +22,7 @@ import numpy as np
 from qgp.classical.kernels import make_kernel
 from qgp.config import load_dataset
 from qgp.errors import QgpError
-from qgp.files import atomic_open, atomic_write_text, check_outputs
+from qgp.files import atomic_open, atomic_write_text, check_outputs, figure_files
 from qgp.scale.classical_cost import measure_flop_rate
 from qgp.scale.conditioning import CONDITIONING_COLUMNS, conditioning_audit, nested_sizes, subset_order
 from qgp.scale.costs import COST_COLUMNS, LOOKUP_QUBIT_CAP, ScaleLaws, cost_sizes, cost_table, crossovers
@@ -79,7 +79,7 @@ def scale_outputs(figures: bool = True) -> tuple[str, ...]:
     """The names `run_scale` writes into its folder."""
     names = [CONDITIONING_FILE, COSTS_FILE, SCALE_FILE]
     if figures:
-        names += [f"{FIGURES_DIR}/{stem}.{ext}" for stem in FIGURE_STEMS for ext in ("pdf", "png")]
+        names += figure_files(FIGURES_DIR, FIGURE_STEMS)
     return tuple(names)
 
 
