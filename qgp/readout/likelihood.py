@@ -189,13 +189,14 @@ class LogDeterminantReadout:
     (n, n_outcomes); ``values``: the log-det estimate each outcome stands for, shape (n_outcomes,);
     ``distribution(v)``: outcome probabilities for a unit input vector v of length 2^m.
     The estimate for input v is distribution(v) @ values; for z/√n (z Rademacher) it is
-    offset + coefficient·zᵀ·``operator``·z, which gives Hutchinson's variance.
+    offset + coefficient·zᵀ·``operator()``·z, which gives Hutchinson's variance (formed on demand:
+    only the probes need it).
     """
 
     row_distributions: np.ndarray
     values: np.ndarray
     distribution: Callable[[np.ndarray], np.ndarray]
-    operator: np.ndarray
+    operator: Callable[[], np.ndarray]
     offset: float
     coefficient: float
     size: int
@@ -238,7 +239,9 @@ def _phase_estimation_readout(problem, circuit, A, bounds, inv, cap, say) -> Log
     n = problem.n_train
     ell = decoded_log_eigenvalues(inv, bounds)
     rows = np.sum(np.abs(psi[:n]) ** 2, axis=2)
-    G = np.real(np.einsum("ikr,k,jkr->ij", psi[:n].conj(), ell, psi[:n]))
+
+    def operator():
+        return np.real(np.einsum("ikr,k,jkr->ij", psi[:n].conj(), ell, psi[:n]))
 
     def distribution(v):
         u = np.tensordot(np.asarray(v, dtype=complex), psi, axes=(0, 0))
@@ -248,7 +251,7 @@ def _phase_estimation_readout(problem, circuit, A, bounds, inv, cap, say) -> Log
     if algorithm_of(circuit).closed_form_model(circuit) and n <= EXACT_EIGEN_LIMIT:
         lam = np.linalg.eigvalsh(np.asarray(problem.A, dtype=float))
         model = float(np.sum(clock_expectation(inv, lam, ell)))
-    return LogDeterminantReadout(rows, n * ell, distribution, G, 0.0, 1.0, c, "clock_qubits", model)
+    return LogDeterminantReadout(rows, n * ell, distribution, operator, 0.0, 1.0, c, "clock_qubits", model)
 
 
 def _qsvt_readout(problem, circuit, A, bounds, cap, say) -> LogDeterminantReadout:
@@ -287,7 +290,7 @@ def _qsvt_readout(problem, circuit, A, bounds, cap, say) -> LogDeterminantReadou
         lam = np.linalg.eigvalsh(np.asarray(problem.A, dtype=float))
         model = float(np.sum(lc.log_eigenvalue(poly(lam / lc.alpha))))
     return LogDeterminantReadout(
-        rows, values, distribution, np.real(B[:n, :n]), offset, -slope, poly.degree, "degree", model
+        rows, values, distribution, lambda: np.real(B[:n, :n]), offset, -slope, poly.degree, "degree", model
     )
 
 
@@ -326,7 +329,7 @@ def _log_determinant(ro: LogDeterminantReadout, n: int, size: int, readout: Read
         dist = ro.distribution(v)
         exact_values[r] = float(dist @ ro.values)
         estimates[r] = exact_values[r] if shots == 0 else _sampled(dist, ro.values, shots, rng)[0]
-    formula = ro.coefficient**2 * hutchinson_variance(ro.operator)
+    formula = ro.coefficient**2 * hutchinson_variance(ro.operator())
     if probes == 1:
         return float(estimates[0]), None, None, formula
     se = float(np.std(estimates, ddof=1) / math.sqrt(probes))
