@@ -71,10 +71,10 @@ def hyperparameter_figure(rows, doc: dict, stem: Path) -> list[Path]:
     size = _column(rows, "size")
     exact, control = doc["optimum"]["exact"], doc["optimum"]["exact_within_limit"]
     with figure_style():
-        fig, axes = plt.subplots(1, 4, figsize=(7.0, 2.3))
+        fig, axes = plt.subplots(1, 4, figsize=(7.0, 2.5))
         for ax, name in zip(axes, ("lengthscale", "signal_variance", "noise_variance")):
             ax.plot(size, _column(rows, f"optimum_{name}"), "o-", ms=3.5, color=PALETTE[0], label="circuit ML-II")
-            for ref, style, text in ((control, "--", f"exact, κ_b ≤ {doc['optimum']['max_condition']:.3g}"), (exact, ":", "exact, no limit")):
+            for ref, style, text in ((control, "--", rf"exact, $\kappa_b \leq$ {doc['optimum']['max_condition']:.3g}"), (exact, ":", "exact, no limit")):
                 v = ref[name][0] if isinstance(ref[name], list) else ref[name]
                 ax.axhline(v, color=_GREY, ls=style, lw=0.9, label=text)
             ax.set(yscale="log", xlabel=_SIZE_LABEL.get(doc.get("size_name"), "circuit size"), title=_PARAM_LABEL[name])
@@ -87,8 +87,9 @@ def hyperparameter_figure(rows, doc: dict, stem: Path) -> list[Path]:
                 ax.axhline(ref["test_nlpd"], color=_GREY, ls=style, lw=0.9, label=text)
         ax.set(xlabel=_SIZE_LABEL.get(doc.get("size_name"), "circuit size"), title="test NLPD (exact GP at the optimum)")
         ax.set_xticks(size)
-        axes[0].legend(frameon=False, fontsize=6)
-        fig.tight_layout()
+        handles, labels = axes[0].get_legend_handles_labels()
+        fig.legend(handles, labels, loc="lower center", ncol=3, frameon=False, fontsize=7)
+        fig.tight_layout(rect=(0, 0.1, 1, 1))
         return save_figure(fig, stem)
 
 
