@@ -62,7 +62,7 @@ from qgp.circuits.inversion import check_bounds
 from qgp.circuits.methods.encodings import get_encoding
 from qgp.circuits.phase_estimation import Form
 from qgp.circuits.polynomials import _POINTS_PER_DEGREE, _chebyshev_points, _dense_values, _refined_max
-from qgp.circuits.qsp import qsp_phases
+from qgp.circuits.qsp import chebyshev_values, qsp_phases
 from qgp.circuits.qsvt import qsvt_circuit
 from qgp.circuits.qsvt_inversion import QSP_MAX_ABS
 from qgp.errors import QgpError
@@ -138,17 +138,8 @@ class LogPolynomial:
     rescale: float = 1.0
 
     def __call__(self, x) -> np.ndarray:
-        """p(x) by Clenshaw's recurrence.
-
-        Parameters
-        ----------
-        x : array_like of any shape
-
-        Returns
-        -------
-        ndarray of the shape of x (float)
-        """
-        return np.asarray(_cheb.chebval(np.asarray(x, dtype=float), self.coefficients), dtype=float)
+        """p(x) for x of any shape (`qgp.circuits.qsp.chebyshev_values`)."""
+        return chebyshev_values(self.coefficients, x)
 
     def target(self, x) -> np.ndarray:
         """f(|x|) = h·ln(b/|x|)/ln(b/a) (even, like p); +inf at x = 0.
