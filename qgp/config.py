@@ -7,6 +7,7 @@ or row, and says how to fix it; nothing heavy runs before validation has passed.
 from __future__ import annotations
 
 import csv
+import difflib
 import gzip
 import math
 import tomllib
@@ -82,6 +83,12 @@ _SECTIONS: dict[str, tuple[str, ...]] = {
 }
 
 
+def _did_you_mean(name: str, valid) -> str:
+    """" (did you mean 'x'?)" for the closest valid name (difflib's ratio ≥ 0.6), else ""."""
+    close = difflib.get_close_matches(str(name), list(valid), n=1)
+    return f" (did you mean '{close[0]}'?)" if close else ""
+
+
 def load_config(path: str | Path) -> Config:
     """Read and validate a TOML config file; CSV paths are relative to the file."""
     path = Path(path)
@@ -100,7 +107,7 @@ def parse_config(raw: dict[str, Any], *, base_dir: Path, source: Path | None = N
     for section in raw:
         if section not in _SECTIONS:
             raise QgpError(
-                f"{where}: unknown section [{section}]; valid sections are "
+                f"{where}: unknown section [{section}]{_did_you_mean(section, _SECTIONS)}; valid sections are "
                 + ", ".join(f"[{s}]" for s in _SECTIONS)
             )
         if not isinstance(raw[section], dict):
@@ -108,7 +115,7 @@ def parse_config(raw: dict[str, Any], *, base_dir: Path, source: Path | None = N
         for key in raw[section]:
             if key not in _SECTIONS[section]:
                 raise QgpError(
-                    f"{where}: unknown key '{key}' in [{section}]; valid keys are "
+                    f"{where}: unknown key '{key}' in [{section}]{_did_you_mean(key, _SECTIONS[section])}; valid keys are "
                     + ", ".join(_SECTIONS[section])
                 )
     if "data" not in raw:
@@ -445,12 +452,15 @@ def read_csv(path: Path, target: str, *, target_required: bool = True) -> tuple[
         # utf-8-sig: spreadsheet programs start a UTF-8 CSV with a byte-order mark.
         opener = gzip.open if Path(path).suffix == ".gz" else open
         with opener(path, "rt", newline="", encoding="utf-8-sig") as fh:
-            rows = list(csv.reader(fh))
+            reader = csv.reader(fh)
+            # (file line where the record ends, record): messages name the line a text editor shows.
+            rows = [(reader.line_num, r) for r in reader]
     except UnicodeDecodeError:
         raise QgpError(f"{path} is not a UTF-8 text CSV file; export it as CSV") from None
     except (gzip.BadGzipFile, EOFError):
         raise QgpError(f"{path} ends in .gz but is not a complete gzip file; recompress it or drop the .gz") from None
-    rows = [r for r in rows if any(cell.strip() for cell in r)]
+    lines = [line for line, r in rows if any(cell.strip() for cell in r)]
+    rows = [r for _, r in rows if any(cell.strip() for cell in r)]
     if not rows:
         raise QgpError(f"{path} is empty; it needs a header row and data rows")
     header = [h.strip() for h in rows[0]]
@@ -466,22 +476,24 @@ def read_csv(path: Path, target: str, *, target_required: bool = True) -> tuple[
         raise QgpError(f"{path}: no input columns besides the target '{target}'; add at least one")
     values = np.empty((len(rows) - 1, len(header)))
     for i, row in enumerate(rows[1:], start=2):
+        # Data row N (the header not counted) and its line in the file (blank lines skipped above).
+        where = f"{path}, data row {i - 1} (file line {lines[i - 1]})"
         if len(row) != len(header):
-            raise QgpError(f"{path}, row {i}: {len(row)} cells but the header has {len(header)}; fix the row")
+            raise QgpError(f"{where}: {len(row)} cells but the header has {len(header)}; fix the row")
         for j, cell in enumerate(row):
             try:
                 x = float(cell)
             except ValueError:
                 raise QgpError(
-                    f"{path}, row {i}, column '{header[j]}': '{cell}' is not a number; fix or remove the row"
+                    f"{where}, column '{header[j]}': '{cell}' is not a number; fix or remove the row"
                 ) from None
             if not math.isfinite(x):
                 raise QgpError(
-                    f"{path}, row {i}, column '{header[j]}': value {cell} is not finite; fix or remove the row"
+                    f"{where}, column '{header[j]}': value {cell} is not finite; fix or remove the row"
                 )
             if abs(x) > MAX_ABS_VALUE:
                 raise QgpError(
-                    f"{path}, row {i}, column '{header[j]}': |{cell}| > {MAX_ABS_VALUE:g}, whose square overflows "
+                    f"{where}, column '{header[j]}': |{cell}| > {MAX_ABS_VALUE:g}, whose square overflows "
                     "double precision; rescale the column (divide it by a power of ten) and the kernel with it"
                 )
             values[i - 2, j] = x

@@ -41,7 +41,9 @@ def test_minimal_config_loads_with_defaults(tmp_path):
     "extra, message",
     [
         ("[noise]\nvariance = 0.1\n[kernel]\nwidth = 2\n", "unknown key 'width' in \\[kernel\\]; valid keys are family"),
-        ("[noise]\nvariance = 0.1\n[solver]\nx = 1\n", "unknown section \\[solver\\]"),
+        ("[noise]\nvariance = 0.1\n[kernel]\nlengthscal = 2\n", "unknown key 'lengthscal' in \\[kernel\\] \\(did you mean 'lengthscale'\\?\\)"),
+        ("[noise]\nvariance = 0.1\n[solver]\nx = 1\n", "unknown section \\[solver\\]; valid"),
+        ("[noise]\nvariance = 0.1\n[circuits]\nx = 1\n", "unknown section \\[circuits\\] \\(did you mean 'circuit'\\?\\)"),
         ("[noise]\nvariance = 0.1\ntarget_condition = 10\n", "sets both variance and target_condition"),
         ("[noise]\nvariance = 'big'\n", "\\[noise\\] variance must be a number"),
         ("[noise]\nvariance = 0.1\n[kernel]\nfamily = 'cubic'\n", "must be one of 'rbf', 'matern32'"),
@@ -78,12 +80,14 @@ def test_invalid_toml(tmp_path):
 @pytest.mark.parametrize(
     "train, message",
     [
-        ("x,y\n0,1\n1,abc\n", "row 3, column 'y': 'abc' is not a number"),
-        ("x,y\n0,1\nnan,2\n", "row 3, column 'x': value nan is not finite"),
-        ("x,y\n0,1\n1,inf\n", "row 3, column 'y': value inf is not finite"),
+        ("x,y\n0,1\n1,abc\n", "data row 2 \\(file line 3\\), column 'y': 'abc' is not a number"),
+        ("x,y\n0,1\nnan,2\n", "data row 2 \\(file line 3\\), column 'x': value nan is not finite"),
+        ("x,y\n0,1\n1,inf\n", "data row 2 \\(file line 3\\), column 'y': value inf is not finite"),
+        # Blank lines are skipped, and the file line still counts them.
+        ("x,y\n0,1\n\n1,inf\n", "data row 2 \\(file line 4\\), column 'y': value inf is not finite"),
         ("x,y\n0,1\n", "1 training row\\(s\\); a GP needs at least 2"),
         ("x,z\n0,1\n1,2\n", "target column 'y' not in the header; columns are x, z"),
-        ("x,y\n0,1\n1,2,3\n", "row 3: 3 cells but the header has 2"),
+        ("x,y\n0,1\n1,2,3\n", "data row 2 \\(file line 3\\): 3 cells but the header has 2"),
     ],
 )
 def test_bad_csv(tmp_path, train, message):

@@ -218,4 +218,4 @@ def test_targets_whose_squares_overflow_are_refused(tmp_path, capsys):
     cfg = _config(tmp_path, train=TRAIN.replace("2.0\n", "1e160\n"))
     assert main(["inspect", str(cfg)]) == 2
     err = _one_line_error(capsys)
-    assert "row 3, column 'y'" in err and "rescale" in err
+    assert "data row 2 (file line 3), column 'y'" in err and "rescale" in err
