@@ -118,6 +118,11 @@ def build_parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--retry-failed", action="store_true", help="rerun points stored as failed")
     p.add_argument("--status", type=Path, metavar="STORE", help="summarise a store (done, failed, pending) and exit")
+    p.add_argument(
+        "--dry-run", action="store_true",
+        help="print every point's strategy, qubits, memory and estimated seconds, the total and the points the memory "
+        "guard would refuse; run nothing (no --store needed)",
+    )
     p.add_argument("--quiet", action="store_true", help="no progress bar on stderr")
     p.set_defaults(handler=_cmd_sweep)
 
@@ -358,6 +363,13 @@ def _cmd_sweep(args) -> int:
         return 0
     if args.sweep is None:
         raise QgpError("no sweep file given; run `qgp sweep SWEEP.toml --store RESULTS.sqlite` (or --status STORE)")
+    if args.dry_run:
+        from qgp.readout.simulate import cpu_count
+        from qgp.sweeps.dry_run import dry_run, format_dry_run
+
+        estimates = dry_run(load_sweep(args.sweep))
+        print(format_dry_run(estimates, args.workers or cpu_count()))
+        return 0
     if args.store is None:
         raise QgpError("no --store given; name the result file, e.g. --store results.sqlite")
     report = run_sweep(
