@@ -260,14 +260,49 @@ def _run_to(cfg_path: Path, out: Path, *, force: bool, quiet: bool, figures: boo
 
 
 def _cmd_run(args) -> int:
+    from qgp.classical.problem import problem_from_config
+    from qgp.config import load_config
+    from qgp.reports.advice import run_advice
+
     figures = not args.no_figures
-    doc, out = _run_to(_resolve_config(args), args.out, force=args.force, quiet=args.quiet, figures=figures)
+    path = _resolve_config(args)
+    doc, out = _run_to(path, args.out, force=args.force, quiet=args.quiet, figures=figures)
     print(
         f"wrote {out / 'predictions.csv'}, {out / 'summary.json'}"
         + (f" and {out / 'figures'}/" if figures else " (no figures: --no-figures)")
     )
-    print(f"mean max |error| {_fmt(doc['mean_max_abs_error'])}, variance max |error| {_fmt(doc['variance_max_abs_error'])}")
+    _print_run(doc, out)
+    cfg = load_config(path)
+    for line in run_advice(cfg, problem_from_config(cfg), doc):
+        print(line, file=sys.stderr)
     return 0
+
+
+def _pair(d: dict | None) -> str:
+    if not isinstance(d, dict) or d.get("exact") is None:
+        return "n/a (no test targets)"
+    return f"exact {_fmt(d['exact'])}, quantum {_fmt(d['quantum'])}"
+
+
+def _print_run(doc: dict, out: Path) -> None:
+    """The table `qgp run` and `qgp demo` print from a run's summary document."""
+    rows = [
+        ("condition number κ", f"{_fmt(doc['condition_number'])} (σ² = {_fmt(doc['noise_variance'])}, {doc['noise_source']})"),
+        ("qubits (total)", f"{doc['total_qubits']} = system {doc['system_qubits']} + clock {doc['clock_qubits']} "
+         f"+ ancillas {doc['ancilla_qubits']}"),
+        ("circuit", f"{doc['evolution'] or 'QSVT'} oracle, {doc['encoding'] or 'no'} encoding"),
+        ("mean: max |error|", f"{_fmt(doc['mean_max_abs_error'])} (relative RMSE {_fmt(doc['mean_rel_rmse'])})"),
+        ("variance: max |error|", f"{_fmt(doc['variance_max_abs_error'])} (relative RMSE {_fmt(doc['variance_rel_rmse'])})"),
+        ("test RMSE", _pair(doc.get("test_rmse"))),
+        ("test NLPD", _pair(doc.get("test_nlpd"))),
+        ("success probability", f"{_fmt(doc['success_probability_mean'])} (Hadamard test), "
+         f"{_fmt(doc['success_probability_inversion'])} (inversion alone)"),
+        ("files", str(out)),
+    ]
+    width = max(len(a) for a, _ in rows)
+    for a, b in rows:
+        print(f"{a:<{width}}  {b}")
+    print(f"\nnote: {doc['caveat']}")
 
 
 def _cmd_export(args) -> int:
@@ -333,21 +368,7 @@ def _cmd_demo(args) -> int:
     from qgp.demo import demo_config_path
 
     doc, out = _run_to(demo_config_path(), args.out, force=args.force, quiet=args.quiet)
-    rows = [
-        ("condition number κ", _fmt(doc["condition_number"])),
-        ("qubits (total)", f"{doc['total_qubits']} = system {doc['system_qubits']} + clock {doc['clock_qubits']} "
-         f"+ ancillas {doc['ancilla_qubits']}"),
-        ("circuit", f"{doc['evolution']} oracle, {doc['encoding'] or 'no'} encoding"),
-        ("mean: max |error|", f"{_fmt(doc['mean_max_abs_error'])} (relative RMSE {_fmt(doc['mean_rel_rmse'])})"),
-        ("variance: max |error|", _fmt(doc["variance_max_abs_error"])),
-        ("success probability", f"{_fmt(doc['success_probability_mean'])} (Hadamard test), "
-         f"{_fmt(doc['success_probability_inversion'])} (inversion alone)"),
-        ("files", str(out)),
-    ]
-    width = max(len(a) for a, _ in rows)
-    for a, b in rows:
-        print(f"{a:<{width}}  {b}")
-    print(f"\nnote: {doc['caveat']}")
+    _print_run(doc, out)
     return 0
 
 
