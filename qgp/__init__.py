@@ -13,6 +13,7 @@ except PackageNotFoundError:  # running from a source tree that is not installed
     __version__ = "0.1.0+source"
 
 from qgp.errors import QgpError
+from qgp.readout.estimator import QuantumGPRegressor
 from qgp.readout.inference import InferenceResult, infer
 from qgp.classical.kernels import RBF, Matern32, Matern52, Tapered, Wendland
 from qgp.classical.problem import Problem, build_problem
@@ -32,4 +33,5 @@ __all__ = [
     "ReadoutSettings",
     "InferenceResult",
     "infer",
+    "QuantumGPRegressor",
 ]

@@ -25,7 +25,6 @@ from qgp.classical.system import (
     pad_matrix,
     pad_vector,
     padded_size,
-    padding_diagonal,
     regularise,
 )
 
@@ -83,7 +82,9 @@ class Problem:
 
     @property
     def padding_diagonal(self) -> float:
-        return padding_diagonal(self.kernel.amplitude, self.noise_variance)
+        """A diagonal entry of A, k(x₁, x₁) + σ² (so inside [λmin, λmax] for any kernel; for qgp's
+        stationary kernels exactly amplitude + σ², `qgp.classical.system.padding_diagonal`)."""
+        return float(np.asarray(self.A[0, 0]).item())
 
     @cached_property
     def A_padded(self) -> np.ndarray:
