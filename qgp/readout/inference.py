@@ -26,6 +26,7 @@ from qgp.circuits.algorithms import algorithm_of
 from qgp.circuits.inversion import InversionCircuit
 from qgp.classical.gp import count_nonpositive, nlpd, rmse
 from qgp.classical.problem import Problem
+from qgp.errors import QgpError
 from qgp.classical.system import eigenvalue_bounds
 from qgp.readout.budget import budget_stage, error_budget, max_abs, rel_rmse, shots_needed
 from qgp.readout.builds import SIMULATED_FORM, cached_pair, clear_caches
@@ -130,6 +131,46 @@ class InferenceResult:
     @property
     def n_negative_variances(self) -> int:
         return count_nonpositive(self.variance_quantum)
+
+    def table(self) -> dict[str, np.ndarray]:
+        """One column per name, one row per test point: the columns of ``predictions.csv`` in order
+        (the input columns, both answers, SEs with shots, the noisy columns with gate noise, the
+        Hadamard-test variance, the ≤ 0 marker, success probabilities, the target when known)."""
+        p = self.problem
+        cols: dict[str, np.ndarray] = {name: p.X_test[:, i] for i, name in enumerate(p.inputs)}
+        cols.update(mean_exact=self.mean_exact, variance_exact=self.variance_exact,
+                    mean_quantum=self.mean_quantum, variance_quantum=self.variance_quantum)
+        if self.mean_quantum_se is not None:
+            cols.update(mean_quantum_se=self.mean_quantum_se, variance_quantum_se=self.variance_quantum_se)
+        if self.gate_noise is not None:
+            cols.update(mean_noiseless=self.mean_noiseless, variance_noiseless=self.variance_noiseless,
+                        mean_trajectory_se=self.mean_trajectory_se, variance_trajectory_se=self.variance_trajectory_se,
+                        success_probability_noisy=self.noisy.p0 + self.noisy.p1,
+                        success_probability_variance_noisy=self.noisy.p_flag)
+        cols.update(variance_quantum_hadamard=self.variance_quantum_hadamard,
+                    variance_quantum_negative=(self.variance_quantum <= 0).astype(int),
+                    success_probability=self.p0 + self.p1, success_probability_variance=self.p_flag)
+        if p.y_test is not None:
+            cols["target"] = p.y_test
+        return cols
+
+    def to_dataframe(self):
+        """`table` as a pandas DataFrame (pandas needed), indexed by test point."""
+        try:
+            import pandas as pd
+        except ImportError:
+            raise QgpError("to_dataframe needs pandas; pip install pandas (or use table())") from None
+        return pd.DataFrame(self.table())
+
+    def __repr__(self) -> str:
+        p = self.problem
+        return (
+            f"InferenceResult({algorithm_of(self.circuit).label(self.circuit)}, n_train={p.n_train}, n_test={p.n_test}, "
+            f"qubits={self.qubits['total']}, κ={p.diagnostics.condition_number if p.diagnostics.condition_number is None else round(p.diagnostics.condition_number, 4)}, "
+            f"mean max|error|={max_abs(self.mean_quantum - self.mean_exact):.3g}, "
+            f"variance max|error|={max_abs(self.variance_quantum - self.variance_exact):.3g}, "
+            f"shots={self.readout.shots}, strategy={self.strategy}, engine={self.engine})"
+        )
 
     def summary(self) -> dict:
         """The JSON-ready summary: the inference keys of `summary.json`, checked against the schema

@@ -59,16 +59,8 @@ The prior mean (summary.json: prior_mean) was subtracted before inference and ad
 
 
 def prediction_columns(result: InferenceResult) -> list[str]:
-    cols = list(result.problem.inputs) + list(PREDICTION_COLUMNS)
-    if result.mean_quantum_se is not None:
-        cols += ["mean_quantum_se", "variance_quantum_se"]
-    if result.gate_noise is not None:
-        cols += ["mean_noiseless", "variance_noiseless", "mean_trajectory_se", "variance_trajectory_se",
-                 "success_probability_noisy", "success_probability_variance_noisy"]
-    cols += ["variance_quantum_hadamard", "variance_quantum_negative", "success_probability", "success_probability_variance"]
-    if result.problem.y_test is not None:
-        cols.append("target")
-    return cols
+    """The column names of predictions.csv (`InferenceResult.table`'s)."""
+    return list(result.table())
 
 
 def _num(x) -> str:
@@ -76,27 +68,11 @@ def _num(x) -> str:
 
 
 def write_predictions(result: InferenceResult, path: Path) -> None:
-    p = result.problem
-    columns = [p.X_test[:, i] for i in range(p.X_test.shape[1])]
-    columns += [result.mean_exact, result.variance_exact, result.mean_quantum, result.variance_quantum]
-    if result.mean_quantum_se is not None:
-        columns += [result.mean_quantum_se, result.variance_quantum_se]
-    if result.gate_noise is not None:
-        noisy = result.noisy
-        columns += [result.mean_noiseless, result.variance_noiseless, result.mean_trajectory_se, result.variance_trajectory_se,
-                    noisy.p0 + noisy.p1, noisy.p_flag]
-    columns += [
-        result.variance_quantum_hadamard,
-        (result.variance_quantum <= 0).astype(int),
-        result.p0 + result.p1,
-        result.p_flag,
-    ]
-    if p.y_test is not None:
-        columns.append(p.y_test)
+    table = result.table()
     with atomic_open(path, "w", newline="") as fh:
         w = csv.writer(fh)
-        w.writerow(prediction_columns(result))
-        for row in zip(*columns):
+        w.writerow(list(table))
+        for row in zip(*table.values()):
             w.writerow([str(int(v)) if isinstance(v, (np.integer,)) else _num(v) for v in row])
     atomic_write_text(path.parent / COLUMN_GUIDE_FILE, _COLUMN_GUIDE.format(caveat=SIMULATION_CAVEAT))
 
