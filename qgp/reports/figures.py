@@ -18,11 +18,12 @@ from qgp.files import atomic_open  # noqa: E402
 from qgp.readout.filter_model import filter_response  # noqa: E402
 from qgp.readout.inference import InferenceResult  # noqa: E402
 
-__all__ = ["PALETTE", "figure_style", "save_figure", "prediction_figure", "filter_figure", "run_figures"]
+__all__ = ["PALETTE", "figure_style", "save_figure", "draw_prediction", "prediction_figure", "filter_figure", "run_figures"]
 
 #: Okabe–Ito colour-blind-safe palette.
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000")
 SINGLE_COLUMN = (3.4, 2.5)
+_GREY = "#555555"
 
 _STYLE = {
     "font.size": 8,
@@ -51,45 +52,82 @@ def save_figure(fig, stem: Path) -> list[Path]:
     try:
         for path, dpi in zip(paths, ("figure", 300)):
             with atomic_open(path, "wb") as fh:
-                fig.savefig(fh, format=path.suffix[1:], dpi=dpi)
+                # bbox "tight" here too: a figure drawn by `draw_*` may be saved outside figure_style,
+                # and legends placed below the axes must not be cut off.
+                fig.savefig(fh, format=path.suffix[1:], dpi=dpi, bbox_inches="tight")
     finally:
         plt.close(fig)
     return paths
 
 
-def prediction_figure(result: InferenceResult, stem: Path) -> list[Path]:
-    """Training data, exact mean ± 2σ, quantum mean ± 2σ (σ from the latent variances)."""
+def draw_prediction(result: InferenceResult):
+    """The prediction figure as a matplotlib Figure (restyle it, or save it with `save_figure`).
+
+    1-D inputs: the exact GP's mean with its latent ±2σ band (of f) and its predictive ±2σ band (of y,
+    latent + σ², which the training data are drawn from) on a dense grid of its own; the circuits' mean
+    at the test points (±2 SE error bars with shots) and their latent ±2σ as bars; training data and
+    held-out targets; below, the residual quantum − exact mean (±2 SE). More inputs: a parity plot of the
+    quantum against the exact mean, and the residual per test point.
+    """
     p = result.problem
     one_d = p.X.shape[1] == 1
-    x_test = p.X_test[:, 0] if one_d else np.arange(p.n_test)
-    order = np.argsort(x_test)
-    xs = x_test[order]
+    se = result.mean_quantum_se
+    resid = result.mean_quantum - result.mean_exact
     with figure_style():
-        fig, ax = plt.subplots(figsize=SINGLE_COLUMN)
-        sd_e = np.sqrt(np.clip(result.variance_exact, 0, None))[order]
-        me = result.mean_exact[order]
-        ax.fill_between(xs, me - 2 * sd_e, me + 2 * sd_e, color=PALETTE[0], alpha=0.2, lw=0, label="exact ±2σ")
-        ax.plot(xs, me, color=PALETTE[0], label="exact mean")
-        mq = result.mean_quantum[order]
-        vq = result.variance_quantum[order]
-        sd_q = np.sqrt(np.clip(vq, 0, None))
-        ax.plot(xs, mq - 2 * sd_q, color=PALETTE[1], lw=0.7, ls="--", label="quantum ±2σ")
-        ax.plot(xs, mq + 2 * sd_q, color=PALETTE[1], lw=0.7, ls="--")
-        if result.mean_quantum_se is not None:
-            ax.errorbar(xs, mq, yerr=2 * result.mean_quantum_se[order], fmt="o", ms=2, color=PALETTE[1],
-                        elinewidth=0.6, label="quantum mean ±2 SE (shots)")
-        else:
-            ax.plot(xs, mq, "o", ms=2, color=PALETTE[1], label="quantum mean")
-        neg = vq <= 0
-        if np.any(neg):
-            ax.plot(xs[neg], mq[neg], "x", color=PALETTE[7], ms=4, label="quantum variance ≤ 0")
+        fig, (ax, rax) = plt.subplots(2, 1, figsize=(3.4, 3.6), sharex=one_d, gridspec_kw={"height_ratios": (3, 1)})
         if one_d:
+            x_all = np.concatenate([p.X[:, 0], p.X_test[:, 0]])
+            span = np.ptp(x_all) or 1.0
+            grid = np.linspace(x_all.min() - 0.02 * span, x_all.max() + 0.02 * span, 400)
+            exact = p.exact.predict(grid[:, None])
+            sd_f = np.sqrt(np.clip(exact.variance_latent, 0, None))
+            sd_y = np.sqrt(np.clip(exact.variance_predictive, 0, None))
+            ax.fill_between(grid, exact.mean - 2 * sd_y, exact.mean + 2 * sd_y, color=PALETTE[5], alpha=0.18, lw=0,
+                            label=r"exact predictive $\pm2\sigma_y$ ($\sigma_y^2=\sigma_f^2+\sigma^2$)")
+            ax.fill_between(grid, exact.mean - 2 * sd_f, exact.mean + 2 * sd_f, color=PALETTE[0], alpha=0.25, lw=0,
+                            label=r"exact latent $\pm2\sigma_f$")
+            ax.plot(grid, exact.mean, color=PALETTE[0], lw=1.0, label="exact mean")
+            x = p.X_test[:, 0]
+            sd_q = np.sqrt(np.clip(result.variance_quantum, 0, None))
+            ax.plot(np.r_[x, x], np.r_[result.mean_quantum - 2 * sd_q, result.mean_quantum + 2 * sd_q], "_",
+                    color=PALETTE[1], ms=4, mew=0.8, label=r"quantum latent $\pm2\sigma_f$")
+            if se is not None:
+                ax.errorbar(x, result.mean_quantum, yerr=2 * se, fmt="o", ms=2, color=PALETTE[1], elinewidth=0.6,
+                            label="quantum mean ±2 SE (shots)")
+            else:
+                ax.plot(x, result.mean_quantum, "o", ms=2, color=PALETTE[1], label="quantum mean")
             ax.plot(p.X[:, 0], p.y, "k.", ms=4, label="training data")
-        ax.set_xlabel(p.inputs[0] if one_d else "test point index")
-        ax.set_ylabel(p.target)
-        ax.legend(frameon=False, ncol=2)
-        ax.set_title(f"{result.circuit.evolution} oracle, c = {result.circuit.clock_qubits}, κ = {p.diagnostics.condition_number:.3g}")
-        return save_figure(fig, stem)
+            if p.y_test is not None:
+                ax.plot(x, p.y_test, "x", color=PALETTE[7], ms=3, mew=0.6, label="held-out targets")
+            neg = result.variance_quantum <= 0
+            if np.any(neg):
+                ax.plot(x[neg], result.mean_quantum[neg], "s", mfc="none", color=PALETTE[3], ms=5,
+                        label="quantum variance ≤ 0")
+            ax.set_ylabel(p.target)
+            rx, rlabel = x, p.inputs[0]
+        else:
+            lo, hi = float(np.min(result.mean_exact)), float(np.max(result.mean_exact))
+            ax.plot([lo, hi], [lo, hi], color=_GREY, lw=0.8, label="quantum = exact")
+            ax.errorbar(result.mean_exact, result.mean_quantum, yerr=None if se is None else 2 * se, fmt="o", ms=2.5,
+                        color=PALETTE[1], elinewidth=0.6, label="test points" + ("" if se is None else " ±2 SE (shots)"))
+            ax.set(xlabel=f"exact mean of {p.target}", ylabel=f"quantum mean of {p.target}")
+            rx, rlabel = np.arange(p.n_test), "test point"
+        rax.axhline(0.0, color=_GREY, lw=0.8)
+        rax.errorbar(rx, resid, yerr=None if se is None else 2 * se, fmt="o", ms=2, color=PALETTE[1], elinewidth=0.6)
+        rax.set(xlabel=rlabel, ylabel="quantum − exact\nmean")
+        label = algorithm_of(result.circuit).label(result.circuit)
+        size = f"c = {result.circuit.clock_qubits}" if algorithm_of(result.circuit).uses_clock else f"degree {result.inverse.n_oracle_calls}"
+        kappa = p.diagnostics.condition_number
+        ax.set_title(f"{label}, {size}" + ("" if kappa is None else rf", $\kappa$ = {kappa:.3g}"))
+        handles, labels = ax.get_legend_handles_labels()
+        fig.tight_layout()
+        fig.legend(handles, labels, loc="upper center", bbox_to_anchor=(0.5, 0.0), ncol=2, frameon=False, fontsize=6)
+        return fig
+
+
+def prediction_figure(result: InferenceResult, stem: Path) -> list[Path]:
+    """`draw_prediction`, saved as ``stem``.pdf and ``stem``.png."""
+    return save_figure(draw_prediction(result), stem)
 
 
 def filter_figure(result: InferenceResult, stem: Path) -> list[Path]:

@@ -1,0 +1,41 @@
+"""The prediction figure as an object: dense-grid band for 1-D inputs, parity plot beyond, residual panel."""
+
+import matplotlib.pyplot as plt
+import numpy as np
+from matplotlib.figure import Figure
+
+from qgp.classical.kernels import RBF
+from qgp.classical.problem import build_problem, problem_from_config
+from qgp.config import load_config
+from qgp.demo import demo_config_path
+from qgp.readout.inference import infer
+from qgp.reports.figures import draw_prediction
+from qgp.settings import CircuitSettings, ReadoutSettings
+
+
+def test_one_input_draws_the_exact_band_on_its_own_grid_and_the_residuals():
+    problem = problem_from_config(load_config(demo_config_path()))
+    result = infer(problem, CircuitSettings(clock_qubits=5), ReadoutSettings(shots=200, seed=1), progress=None)
+    fig = draw_prediction(result)
+    assert isinstance(fig, Figure) and len(fig.axes) == 2
+    main, resid = fig.axes
+    labels = [h.get_label() for h in main.get_legend_handles_labels()[0]]
+    assert "held-out targets" in labels and "training data" in labels
+    mean_line = [ln for ln in main.get_lines() if ln.get_label() == "exact mean"][0]
+    assert len(mean_line.get_xdata()) > 5 * problem.n_test  # its own dense grid, not a polyline through test points
+    # The exact mean on that grid is the exact GP's own prediction there (R&W Alg. 2.1; numpy reference).
+    x, y = mean_line.get_xdata(), mean_line.get_ydata()
+    np.testing.assert_allclose(y, problem.exact.predict(x[:, None]).mean, rtol=1e-12)
+    assert resid.get_ylabel().startswith("quantum − exact")
+    plt.close(fig)
+
+
+def test_several_inputs_draw_a_parity_plot():
+    rng = np.random.default_rng(0)
+    X = rng.normal(size=(8, 2))
+    y = np.sin(X[:, 0]) + 0.5 * X[:, 1]
+    problem = build_problem(X, y, RBF(1.0, 1.5), noise_variance=0.1, X_test=X[:5] + 0.05)
+    fig = draw_prediction(infer(problem, CircuitSettings(clock_qubits=5), progress=None))
+    main = fig.axes[0]
+    assert main.get_xlabel().startswith("exact mean") and main.get_ylabel().startswith("quantum mean")
+    plt.close(fig)
