@@ -30,6 +30,7 @@ from qgp.errors import QgpError
 from qgp.files import atomic_open, atomic_write_text, check_outputs, figure_files
 from qgp.readout.likelihood import estimate_log_marginal_likelihood
 from qgp.readout.training import circuit_problem, fit_ml2_circuit
+from qgp.reports.inspection import SIMULATION_CAVEAT
 from qgp.reports.run import config_inputs, to_json
 from qgp.settings import CircuitSettings, Config
 
@@ -65,10 +66,8 @@ SIZE_COLUMNS = (
 )
 SURFACE_COLUMNS = ("parameter", "value", "lml_exact", "lml_quantum", "lml_se", "condition_number_bound", "within_limit")
 
-CAVEAT = (
-    "Simulated circuits, not a device: simulated accuracy says nothing by itself about a speed-up on hardware, "
-    "and the condition number and sparsity of kernel matrices grow with n."
-)
+#: The caveat every qgp report carries (`qgp.reports.inspection.SIMULATION_CAVEAT`).
+CAVEAT = SIMULATION_CAVEAT
 
 
 def fit_outputs(figures: bool = True) -> tuple[str, ...]:
