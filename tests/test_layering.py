@@ -23,6 +23,7 @@ STAGES = {
     "settings": 0,
     "environment": 0,
     "memory": 0,
+    "progress": 0,
     "config": 1,
     "demo": 1,
     "classical": 2,

@@ -15,7 +15,6 @@ checks every simulation the chosen strategy will make (`qgp.readout.plan.simulat
 from __future__ import annotations
 
 import math
-import sys
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
@@ -37,6 +36,7 @@ from qgp.readout.estimators import (
     sample_variance,
     variance_probabilities,
 )
+from qgp.progress import progress as progress_message
 from qgp.readout.filter_model import model_operator
 from qgp.readout.noisy_outcomes import NoisyOutcomes, noisy_outcomes
 from qgp.readout.plan import SimulationPlan, check_clock_qubits, simulation_plan
@@ -60,7 +60,8 @@ Progress = Callable[[str], None]
 
 
 def _stderr_progress(msg: str) -> None:
-    print(f"qgp: {msg}", file=sys.stderr, flush=True)
+    """The default progress of `infer`: the ``"qgp"`` logger at INFO (silent unless logging is configured)."""
+    progress_message(msg)
 
 
 @dataclass(frozen=True)
@@ -475,7 +476,8 @@ def infer(
         ``[gate_noise]``: also simulate every test point's gate-form circuits under depolarising
         gate noise and read-out flips (qgp.readout.noisy_outcomes); the answers are then the noisy ones.
     progress : callable, optional
-        Receives one message per stage (default: stderr; None for silence).
+        Receives one message per stage (default: the ``"qgp"`` logger at INFO, silent unless logging is
+        configured — `qgp.progress`; None for none at all).
 
     Returns
     -------

@@ -17,7 +17,6 @@ from __future__ import annotations
 import csv
 import json
 import math
-import sys
 import time
 from dataclasses import replace
 from pathlib import Path
@@ -27,6 +26,7 @@ import numpy as np
 from qgp.classical.gp import condition, fit_ml2, nlpd, rmse
 from qgp.classical.problem import problem_from_config
 from qgp.errors import QgpError
+from qgp.progress import reporter
 from qgp.files import atomic_open, atomic_write_text, check_outputs, figure_files
 from qgp.readout.likelihood import estimate_log_marginal_likelihood
 from qgp.readout.training import circuit_problem, fit_ml2_circuit
@@ -128,7 +128,7 @@ def _write_csv(path: Path, columns, rows: list[dict]) -> None:
 def _say(quiet: bool):
     if quiet:
         return None
-    return lambda msg: print(f"qgp fit: {msg}", file=sys.stderr, flush=True)
+    return reporter("fit: ")
 
 
 def _check(cfg: Config) -> None:

@@ -17,6 +17,7 @@ from qgp.circuits.algorithms import algorithm_of
 from qgp.environment import versions
 from qgp.files import atomic_open, atomic_write_text, check_outputs
 from qgp.readout.inference import InferenceResult
+from qgp.progress import progress
 from qgp.reports.inspection import SIMULATION_CAVEAT
 from qgp.settings import Config
 
@@ -263,6 +264,4 @@ def run_config(
 
 
 def _progress(msg: str) -> None:
-    import sys
-
-    print(f"qgp: {msg}", file=sys.stderr, flush=True)
+    progress(msg)

@@ -12,7 +12,6 @@ from __future__ import annotations
 
 import csv
 import json
-import sys
 import time
 from dataclasses import asdict, replace
 from pathlib import Path
@@ -22,6 +21,7 @@ import numpy as np
 from qgp.classical.kernels import make_kernel
 from qgp.config import load_dataset
 from qgp.errors import QgpError
+from qgp.progress import reporter
 from qgp.files import atomic_open, atomic_write_text, check_outputs, figure_files
 from qgp.scale.classical_cost import measure_flop_rate
 from qgp.scale.conditioning import CONDITIONING_COLUMNS, conditioning_audit, nested_sizes, subset_order
@@ -86,7 +86,7 @@ def scale_outputs(figures: bool = True) -> tuple[str, ...]:
 def _say(quiet: bool):
     if quiet:
         return None
-    return lambda msg: print(f"qgp scale: {msg}", file=sys.stderr, flush=True)
+    return reporter("scale: ")
 
 
 def _check(cfg: Config) -> float:

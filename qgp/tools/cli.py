@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import logging
 import math
 import sys
 from pathlib import Path
@@ -41,6 +42,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--version", action="version", version=f"qgp {__version__}")
     parser.add_argument("--debug", action="store_true", help="show a traceback on errors")
+    parser.add_argument("-v", "--verbose", action="count", default=0, help="more progress detail (the qgp logger at DEBUG)")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser(
@@ -432,12 +434,40 @@ def _cmd_bench(args) -> int:
     return 0
 
 
+class _StderrHandler(logging.Handler):
+    """Progress on whatever sys.stderr is at the time of each message (so captured streams see it)."""
+
+    def emit(self, record: logging.LogRecord) -> None:
+        print(f"qgp: {record.getMessage()}", file=sys.stderr, flush=True)
+
+
+def _logging(args):
+    """Attach the ``"qgp"`` logger's stderr handler for one command (INFO; nothing with --quiet; DEBUG
+    with -v); returns the function that restores the logger, so library calls after it stay silent."""
+    logger = logging.getLogger("qgp")
+    saved = (logger.level, logger.propagate)
+    handler = None if getattr(args, "quiet", False) else _StderrHandler()
+    if handler is not None:
+        logger.addHandler(handler)
+        logger.setLevel(logging.DEBUG if getattr(args, "verbose", 0) else logging.INFO)
+        logger.propagate = False
+
+    def restore() -> None:
+        if handler is not None:
+            logger.removeHandler(handler)
+        logger.setLevel(saved[0])
+        logger.propagate = saved[1]
+
+    return restore
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
     if getattr(args, "handler", None) is None:
         parser.print_help()
         return 2
+    restore = _logging(args)
     try:
         return int(args.handler(args) or 0)
     except QgpError as exc:
@@ -448,6 +478,8 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("qgp: interrupted", file=sys.stderr)
         return 130
+    finally:
+        restore()
 
 
 if __name__ == "__main__":
