@@ -47,7 +47,7 @@ __all__ = ["load_config", "parse_config", "Dataset", "load_dataset", "read_csv",
 MAX_CLOCK_QUBITS = 24
 
 _SECTIONS: dict[str, tuple[str, ...]] = {
-    "data": ("train", "test", "target", "center", "n_train", "subsample_seed"),
+    "data": ("train", "test", "target", "center", "n_train", "subsample_seed", "labels"),
     "kernel": ("family", "lengthscale", "amplitude", "support", "fit", "smoothness"),
     "noise": ("variance", "target_condition"),
     "circuit": (
@@ -232,7 +232,16 @@ def _parse_data(v: _Validator, t: dict, base_dir: Path) -> DataSpec:
         center=v.boolean(t, "data", "center", True),
         n_train=v.integer(t, "data", "n_train", None, minimum=2),
         subsample_seed=v.integer(t, "data", "subsample_seed", 0, minimum=0),
+        labels=_parse_labels(v, t.get("labels", {})),
     )
+
+
+def _parse_labels(v: _Validator, t) -> tuple[tuple[str, str], ...]:
+    """``[data] labels``: a table column = "label (unit)"; the columns are checked against the header
+    when the data are read (`load_dataset`)."""
+    if not isinstance(t, dict) or not all(isinstance(x, str) and x.strip() for x in t.values()):
+        raise v.fail("data", "labels", 'must be a table of column = "label (unit)" strings, e.g. labels = { ice_cm = "ice thickness (cm)" }')
+    return tuple((str(k), str(x)) for k, x in t.items())
 
 
 def _parse_kernel(v: _Validator, t: dict) -> KernelSpec:
@@ -505,6 +514,12 @@ def read_csv(path: Path, target: str, *, target_required: bool = True) -> tuple[
 def load_dataset(spec: DataSpec) -> Dataset:
     """Read the training (and test) CSVs named in ``[data]``, in file order, never reordered."""
     X, y, inputs = read_csv(spec.train, spec.target)
+    for column, _ in spec.labels:
+        if column not in (*inputs, spec.target):
+            raise QgpError(
+                f"[data] labels names column '{column}'{_did_you_mean(column, (*inputs, spec.target))}, which "
+                f"{spec.train} does not have; columns are {', '.join((*inputs, spec.target))}"
+            )
     if X.shape[0] < 2:
         raise QgpError(f"{spec.train}: {X.shape[0]} training row(s); a GP needs at least 2")
     if spec.n_train is not None:

@@ -75,6 +75,7 @@ class DataSpec:
 
     ``n_train`` keeps a reproducible random subset of that many training rows (in file order),
     drawn from a permutation seeded by ``subsample_seed``: subsets for growing n are nested.
+    ``labels``: (column, label with unit) pairs for figure axes, e.g. ("ice_cm", "ice thickness (cm)").
     """
 
     train: Path
@@ -83,6 +84,7 @@ class DataSpec:
     center: bool = True
     n_train: int | None = None
     subsample_seed: int = 0
+    labels: tuple[tuple[str, str], ...] = ()
 
 
 @dataclass(frozen=True)

@@ -55,6 +55,12 @@ class Problem:
     A: np.ndarray
     inputs: tuple[str, ...] = ()
     target: str = "y"
+    #: (column, label with unit) pairs for figures (``[data] labels``).
+    labels: tuple[tuple[str, str], ...] = ()
+
+    def label(self, column: str) -> str:
+        """The figure label of ``column``: its ``[data] labels`` entry, else the column name."""
+        return dict(self.labels).get(column, column)
 
     @property
     def n_train(self) -> int:
@@ -191,6 +197,7 @@ def build_problem(
     rng: np.random.Generator | None = None,
     inputs: tuple[str, ...] = (),
     target: str = "y",
+    labels=(),
 ) -> Problem:
     """Set up A = K + σ²I for data (X, y) and test inputs X* (X itself when omitted).
 
@@ -247,6 +254,7 @@ def build_problem(
         A=A,
         inputs=inputs or tuple(f"x{i}" for i in range(X.shape[1])),
         target=target,
+        labels=tuple(dict(labels).items()),
     )
 
 
@@ -268,5 +276,6 @@ def problem_from_config(cfg: Config, *, dataset: Dataset | None = None) -> Probl
         rng=rng,
         inputs=ds.inputs,
         target=ds.target,
+        labels=cfg.data.labels,
     )
 

@@ -86,6 +86,8 @@ class QuantumGPRegressor(_Mixin, _Base):
         The read-out (``[readout]`` keys); ``shots = 0`` means exact outcome probabilities.
     center : bool
         Use the training mean of y as the prior mean.
+    labels : dict, optional
+        Column name → "label (unit)" for figure axes (``[data] labels``).
     """
 
     def __init__(
@@ -106,6 +108,7 @@ class QuantumGPRegressor(_Mixin, _Base):
         strategy: str = "auto",
         engine: str = "auto",
         center: bool = True,
+        labels: dict | None = None,
     ):
         self.kernel = kernel
         self.noise_variance = noise_variance
@@ -122,6 +125,7 @@ class QuantumGPRegressor(_Mixin, _Base):
         self.strategy = strategy
         self.engine = engine
         self.center = center
+        self.labels = labels
 
     # -- the settings, checked once at fit ------------------------------------------------------
 
@@ -171,7 +175,7 @@ class QuantumGPRegressor(_Mixin, _Base):
         self.n_features_in_ = X_.shape[1]
         problem = build_problem(
             X_, y_, self.kernel_, noise_variance=self.noise_variance, target_condition=self.target_condition,
-            X_test=X_[:1], center=self.center, inputs=self.feature_names_in_ or (),
+            X_test=X_[:1], center=self.center, inputs=self.feature_names_in_ or (), labels=self.labels or (),
         )
         self.X_train_, self.y_train_ = X_, y_
         self.noise_variance_ = problem.noise_variance
@@ -192,7 +196,7 @@ class QuantumGPRegressor(_Mixin, _Base):
             raise QgpError(f"X has {Xs.shape[1]} feature(s) but the model was fitted on {self.n_features_in_}")
         return build_problem(
             self.X_train_, self.y_train_, self.kernel_, noise_variance=self.noise_variance_, X_test=Xs,
-            center=self.center, inputs=self.feature_names_in_ or (),
+            center=self.center, inputs=self.feature_names_in_ or (), labels=self.labels or (),
         )
 
     def predict(self, X, return_std: bool = False):

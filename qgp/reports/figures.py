@@ -103,14 +103,14 @@ def draw_prediction(result: InferenceResult):
             if np.any(neg):
                 ax.plot(x[neg], result.mean_quantum[neg], "s", mfc="none", color=PALETTE[3], ms=5,
                         label="quantum variance ≤ 0")
-            ax.set_ylabel(p.target)
-            rx, rlabel = x, p.inputs[0]
+            ax.set_ylabel(p.label(p.target))
+            rx, rlabel = x, p.label(p.inputs[0])
         else:
             lo, hi = float(np.min(result.mean_exact)), float(np.max(result.mean_exact))
             ax.plot([lo, hi], [lo, hi], color=_GREY, lw=0.8, label="quantum = exact")
             ax.errorbar(result.mean_exact, result.mean_quantum, yerr=None if se is None else 2 * se, fmt="o", ms=2.5,
                         color=PALETTE[1], elinewidth=0.6, label="test points" + ("" if se is None else " ±2 SE (shots)"))
-            ax.set(xlabel=f"exact mean of {p.target}", ylabel=f"quantum mean of {p.target}")
+            ax.set(xlabel=f"exact mean of {p.label(p.target)}", ylabel=f"quantum mean of {p.label(p.target)}")
             rx, rlabel = np.arange(p.n_test), "test point"
         rax.axhline(0.0, color=_GREY, lw=0.8)
         rax.errorbar(rx, resid, yerr=None if se is None else 2 * se, fmt="o", ms=2, color=PALETTE[1], elinewidth=0.6)

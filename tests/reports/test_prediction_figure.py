@@ -39,3 +39,23 @@ def test_several_inputs_draw_a_parity_plot():
     main = fig.axes[0]
     assert main.get_xlabel().startswith("exact mean") and main.get_ylabel().startswith("quantum mean")
     plt.close(fig)
+
+
+def test_labels_with_units_reach_the_axes_and_bad_columns_are_named(tmp_path):
+    # The bundled demo config labels its columns ([data] labels).
+    from qgp.config import load_dataset
+    from qgp.errors import QgpError
+    import pytest
+
+    cfg = load_config(demo_config_path())
+    problem = problem_from_config(cfg)
+    fig = draw_prediction(infer(problem, CircuitSettings(clock_qubits=4), progress=None))
+    main, resid = fig.axes
+    assert main.get_ylabel() == "ice thickness (cm)" and resid.get_xlabel() == "distance along the transect (m)"
+    plt.close(fig)
+    text = demo_config_path().read_text().replace('distance_m = "distance', 'distanse_m = "distance')
+    path = tmp_path / "cfg.toml"
+    path.write_text(text.replace('"ice_train.csv"', f'"{(demo_config_path().parent / "ice_train.csv").as_posix()}"')
+                    .replace('"ice_test.csv"', f'"{(demo_config_path().parent / "ice_test.csv").as_posix()}"'))
+    with pytest.raises(QgpError, match="labels names column 'distanse_m' \\(did you mean 'distance_m'\\?\\)"):
+        load_dataset(load_config(path).data)
