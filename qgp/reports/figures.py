@@ -7,9 +7,15 @@ from __future__ import annotations
 from contextlib import contextmanager
 from pathlib import Path
 
+import sys
+
 import matplotlib
 
-matplotlib.use("Agg")
+# Files only (the command, sweeps, tests): the Agg backend needs no display. But never take a backend
+# away from a notebook or from a program that chose one before importing qgp: draw_* return Figures
+# they can show and restyle.
+if "ipykernel" not in sys.modules and "matplotlib.pyplot" not in sys.modules:
+    matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 

@@ -59,3 +59,18 @@ def test_labels_with_units_reach_the_axes_and_bad_columns_are_named(tmp_path):
                     .replace('"ice_test.csv"', f'"{(demo_config_path().parent / "ice_test.csv").as_posix()}"'))
     with pytest.raises(QgpError, match="labels names column 'distanse_m' \\(did you mean 'distance_m'\\?\\)"):
         load_dataset(load_config(path).data)
+
+
+def test_importing_the_figures_keeps_a_backend_chosen_before():
+    # A notebook or program that picked a matplotlib backend keeps it (draw_* figures can be shown);
+    # a bare import (the command, sweeps) gets the display-free Agg. Fresh interpreters, so the
+    # test's own imports do not decide.
+    import subprocess
+    import sys
+
+    chosen = ("import matplotlib; matplotlib.use('svg'); import matplotlib.pyplot; "
+              "import qgp.reports.figures; print(matplotlib.get_backend())")
+    bare = "import qgp.reports.figures, matplotlib; print(matplotlib.get_backend())"
+    out = [subprocess.run([sys.executable, "-c", c], capture_output=True, text=True, check=True).stdout.strip()
+           for c in (chosen, bare)]
+    assert out == ["svg", "agg"] or out == ["svg", "Agg"], out
