@@ -178,7 +178,7 @@ def run_fit(cfg: Config, out: Path, *, overwrite: bool = False, figures: bool = 
     overwrite : bool
     figures : bool
     quiet : bool
-        No progress on stderr.
+        No progress messages (else the ``"qgp"`` logger at INFO, `qgp.progress`).
 
     Returns
     -------

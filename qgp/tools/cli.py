@@ -23,6 +23,15 @@ def _config_arg(p: argparse.ArgumentParser) -> None:
     p.add_argument("--demo", action="store_true", help="use the bundled demo config instead")
 
 
+def _report_args(p: argparse.ArgumentParser, files: str) -> None:
+    """CONFIG/--demo and the output-folder options of a command that writes a report folder (``files``)."""
+    _config_arg(p)
+    p.add_argument("--out", type=Path, required=True, help="output folder (created if missing; earlier outputs are kept unless --force)")
+    p.add_argument("--force", action="store_true", help=f"overwrite {files} in --out")
+    p.add_argument("--no-figures", action="store_true", help="write the CSV and JSON files only")
+    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+
+
 def _resolve_config(args) -> Path:
     from qgp.demo import demo_config_path
 
@@ -158,15 +167,11 @@ def build_parser() -> argparse.ArgumentParser:
         "surface-code cost of each inversion method against Cholesky and conjugate gradients for n = 10² … 10⁶. "
         "Writes conditioning.csv, costs.csv, scale.json and figures/ into --out. --demo uses the bundled radar survey.",
     )
-    _config_arg(p)
-    p.add_argument("--out", type=Path, required=True, help="output folder (created if missing; earlier outputs are kept unless --force)")
-    p.add_argument("--force", action="store_true", help="overwrite conditioning.csv, costs.csv, scale.json and figures/ in --out")
+    _report_args(p, "conditioning.csv, costs.csv, scale.json and figures/")
     p.add_argument(
         "--order", choices=("permutation", "file"), default=None,
         help="nested subsets: the first n rows of the [data] subsample_seed permutation (default) or of the file",
     )
-    p.add_argument("--no-figures", action="store_true", help="write the CSV and JSON files only")
-    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
     p.set_defaults(handler=_cmd_scale)
 
     p = sub.add_parser(
@@ -177,11 +182,7 @@ def build_parser() -> argparse.ArgumentParser:
         "on the circuits' estimate beside the exact ML-II, and write fit.json, sizes.csv, surface.csv and figures/ "
         "into --out. --demo uses the bundled ice-thickness transect.",
     )
-    _config_arg(p)
-    p.add_argument("--out", type=Path, required=True, help="output folder (created if missing; earlier outputs are kept unless --force)")
-    p.add_argument("--force", action="store_true", help="overwrite fit.json, sizes.csv, surface.csv and figures/ in --out")
-    p.add_argument("--no-figures", action="store_true", help="write the CSV and JSON files only")
-    p.add_argument("--quiet", action="store_true", help="no progress messages on stderr")
+    _report_args(p, "fit.json, sizes.csv, surface.csv and figures/")
     p.set_defaults(handler=_cmd_fit)
 
     p = sub.add_parser(
