@@ -21,7 +21,7 @@ from qgp.progress import progress
 from qgp.reports.inspection import SIMULATION_CAVEAT
 from qgp.settings import Config
 
-__all__ = ["PREDICTIONS_FILE", "SUMMARY_FILE", "COLUMN_GUIDE_FILE", "FIGURES_DIR", "run_outputs", "config_inputs", "provenance", "PREDICTION_COLUMNS", "prediction_columns", "write_predictions", "summary_document", "write_summary", "config_document", "to_json", "run_config"]
+__all__ = ["PREDICTIONS_FILE", "SUMMARY_FILE", "COLUMN_GUIDE_FILE", "FIGURES_DIR", "run_outputs", "config_inputs", "provenance", "PREDICTION_COLUMNS", "prediction_columns", "write_predictions", "summary_document", "write_summary", "config_document", "to_json", "run_config", "run_result"]
 
 PREDICTIONS_FILE = "predictions.csv"
 SUMMARY_FILE = "summary.json"
@@ -237,7 +237,16 @@ def config_inputs(cfg: Config) -> list[Path]:
 def run_config(
     cfg: Config, out: Path, *, overwrite: bool = False, quiet: bool = False, figures: bool = True
 ) -> tuple[dict, Path]:
-    """`qgp run`: problem → inference → predictions.csv, summary.json, figures/ in ``out``.
+    """`run_result` without the result: (summary document, output folder)."""
+    _, doc, out = run_result(cfg, out, overwrite=overwrite, quiet=quiet, figures=figures)
+    return doc, out
+
+
+def run_result(
+    cfg: Config, out: Path, *, overwrite: bool = False, quiet: bool = False, figures: bool = True
+) -> tuple[InferenceResult, dict, Path]:
+    """`qgp run`: problem → inference → predictions.csv, summary.json, figures/ in ``out``; returns
+    the `InferenceResult` (its ``problem`` included), the summary document and the folder.
 
     Before any work, refuses to replace any file a run writes (not only an earlier run's) unless
     ``overwrite``; every file is written atomically (temporary name, then rename), and summary.json
@@ -260,7 +269,7 @@ def run_config(
             _progress("drawing figures")
         run_figures(result, out / FIGURES_DIR)
     doc = write_summary(result, out / SUMMARY_FILE, cfg)
-    return doc, out
+    return result, doc, out
 
 
 def _progress(msg: str) -> None:

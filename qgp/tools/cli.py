@@ -255,28 +255,25 @@ def _cmd_inspect(args) -> int:
 
 
 def _run_to(cfg_path: Path, out: Path, *, force: bool, quiet: bool, figures: bool = True):
+    """(config, result, summary document, folder) of `qgp.reports.run.run_result`."""
     from qgp.config import load_config
-    from qgp.reports.run import run_config
+    from qgp.reports.run import run_result
 
     cfg = load_config(cfg_path)
-    return run_config(cfg, out, overwrite=force, quiet=quiet, figures=figures)
+    return (cfg, *run_result(cfg, out, overwrite=force, quiet=quiet, figures=figures))
 
 
 def _cmd_run(args) -> int:
-    from qgp.classical.problem import problem_from_config
-    from qgp.config import load_config
     from qgp.reports.advice import run_advice
 
     figures = not args.no_figures
-    path = _resolve_config(args)
-    doc, out = _run_to(path, args.out, force=args.force, quiet=args.quiet, figures=figures)
+    cfg, result, doc, out = _run_to(_resolve_config(args), args.out, force=args.force, quiet=args.quiet, figures=figures)
     print(
         f"wrote {out / 'predictions.csv'}, {out / 'summary.json'}"
         + (f" and {out / 'figures'}/" if figures else " (no figures: --no-figures)")
     )
     _print_run(doc, out)
-    cfg = load_config(path)
-    for line in run_advice(cfg, problem_from_config(cfg), doc):
+    for line in run_advice(cfg, result.problem, doc):
         print(line, file=sys.stderr)
     return 0
 
@@ -370,7 +367,7 @@ def _cmd_fit(args) -> int:
 def _cmd_demo(args) -> int:
     from qgp.demo import demo_config_path
 
-    doc, out = _run_to(demo_config_path(), args.out, force=args.force, quiet=args.quiet)
+    _, _, doc, out = _run_to(demo_config_path(), args.out, force=args.force, quiet=args.quiet)
     _print_run(doc, out)
     return 0
 
