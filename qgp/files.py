@@ -32,6 +32,7 @@ __all__ = [
     "check_output_file",
     "same_file",
     "figure_files",
+    "write_csv_rows",
 ]
 
 
@@ -166,6 +167,17 @@ def check_outputs(
             f"{option} {out} already holds {shown}{more}; choose another folder or pass --force to overwrite"
         )
     return out
+
+
+def write_csv_rows(path: str | Path, columns, rows) -> None:
+    """Write dicts as CSV rows under the header ``columns``, atomically; a missing key or None is an empty cell."""
+    import csv
+
+    with atomic_open(path, "w", newline="") as fh:
+        w = csv.DictWriter(fh, fieldnames=list(columns))
+        w.writeheader()
+        for row in rows:
+            w.writerow({k: ("" if row.get(k) is None else row[k]) for k in columns})
 
 
 def figure_files(folder: str, stems) -> list[str]:

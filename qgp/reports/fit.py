@@ -14,7 +14,6 @@ nothing is replaced without ``overwrite``.
 
 from __future__ import annotations
 
-import csv
 import json
 import math
 import time
@@ -27,7 +26,7 @@ from qgp.classical.gp import condition, fit_ml2, nlpd, rmse
 from qgp.classical.problem import problem_from_config
 from qgp.errors import QgpError
 from qgp.progress import reporter
-from qgp.files import atomic_open, atomic_write_text, check_outputs, figure_files
+from qgp.files import atomic_write_text, check_outputs, figure_files, write_csv_rows
 from qgp.readout.likelihood import estimate_log_marginal_likelihood
 from qgp.readout.training import circuit_problem, fit_ml2_circuit
 from qgp.reports.inspection import SIMULATION_CAVEAT
@@ -115,14 +114,6 @@ def _test_scores(problem, kernel, noise_variance: float) -> dict:
         "test_rmse": rmse(problem.y_test, pred.mean),
         "test_nlpd": nlpd(problem.y_test, pred.mean, pred.variance_predictive),
     }
-
-
-def _write_csv(path: Path, columns, rows: list[dict]) -> None:
-    with atomic_open(path, "w", newline="") as fh:
-        w = csv.DictWriter(fh, fieldnames=list(columns))
-        w.writeheader()
-        for row in rows:
-            w.writerow({k: ("" if row.get(k) is None else row[k]) for k in columns})
 
 
 def _say(quiet: bool):
@@ -226,14 +217,14 @@ def run_fit(cfg: Config, out: Path, *, overwrite: bool = False, figures: bool = 
             "optimum_evaluations": q.evaluations,
         })
     out.mkdir(parents=True, exist_ok=True)
-    _write_csv(out / SIZES_FILE, SIZE_COLUMNS, size_rows)
+    write_csv_rows(out / SIZES_FILE, SIZE_COLUMNS, size_rows)
     # The config's own circuit: its optimum from the size study when it is one of the sizes.
     own = fits.get(at_config.size)
     if own is None:
         note(f"circuit ML-II at the config's {at_config.size_name} = {at_config.size}")
         own = fit_ml2_circuit(problem.X, problem.y, problem.kernel, cfg.circuit, cfg.readout, np.random.default_rng(cfg.readout.seed), **common)
     surface = _surface(problem, control.kernel, control.noise_variance, cfg, max_condition, note)
-    _write_csv(out / SURFACE_FILE, SURFACE_COLUMNS, surface)
+    write_csv_rows(out / SURFACE_FILE, SURFACE_COLUMNS, surface)
 
     def optimum(kernel, noise, lml, **extra):
         return {**_hyperparameters(kernel, noise), "log_marginal_likelihood": lml, **_test_scores(problem, kernel, noise), **extra}

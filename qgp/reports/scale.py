@@ -22,7 +22,7 @@ from qgp.classical.kernels import make_kernel
 from qgp.config import load_dataset
 from qgp.errors import QgpError
 from qgp.progress import reporter
-from qgp.files import atomic_open, atomic_write_text, check_outputs, figure_files
+from qgp.files import atomic_write_text, check_outputs, figure_files, write_csv_rows
 from qgp.scale.classical_cost import measure_flop_rate
 from qgp.scale.conditioning import CONDITIONING_COLUMNS, conditioning_audit, nested_sizes, subset_order
 from qgp.scale.costs import COST_COLUMNS, LOOKUP_QUBIT_CAP, ScaleLaws, cost_sizes, cost_table, crossovers
@@ -130,14 +130,6 @@ def _laws(fits: dict, kernel, noise_variance: float) -> ScaleLaws:
     )
 
 
-def _write_csv(path: Path, columns, rows) -> None:
-    with atomic_open(path, "w", newline="") as fh:
-        w = csv.DictWriter(fh, fieldnames=list(columns))
-        w.writeheader()
-        for row in rows:
-            w.writerow({k: ("" if v is None else v) for k, v in row.as_dict().items()})
-
-
 def _crossover_text(cross: dict, n_max: int) -> dict:
     return {k: (f"n ≈ {v}" if v is not None else f"none below {n_max:.0e}".replace("e+0", "e")) for k, v in cross.items()}
 
@@ -195,7 +187,7 @@ def run_scale(
     )
     # Written at once: the audit is the long part, and a later failure must not lose it.
     out.mkdir(parents=True, exist_ok=True)
-    _write_csv(out / CONDITIONING_FILE, CONDITIONING_COLUMNS, rows)
+    write_csv_rows(out / CONDITIONING_FILE, CONDITIONING_COLUMNS, [r.as_dict() for r in rows])
     fits = _fits(rows)
     laws = _laws(fits, kernel, noise)
     if sc.classical_flop_rate is None:
@@ -212,7 +204,7 @@ def run_scale(
     sizes_cost = cost_sizes(sc.cost_n_min, sc.cost_n_max, sc.cost_points_per_decade)
     costs = cost_table(laws, sizes_cost, relative_error=sc.relative_error, test_points=sc.test_points, surface=surface, flop_rate=flop_rate)
     cross = crossovers(costs)
-    _write_csv(out / COSTS_FILE, COST_COLUMNS, costs)
+    write_csv_rows(out / COSTS_FILE, COST_COLUMNS, [r.as_dict() for r in costs])
     doc = {
         "schema": SCALE_SCHEMA,
         "config": None if cfg.source is None else str(cfg.source),
