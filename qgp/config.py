@@ -11,6 +11,7 @@ import difflib
 import gzip
 import math
 import tomllib
+import warnings
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -48,7 +49,8 @@ MAX_CLOCK_QUBITS = 24
 
 _SECTIONS: dict[str, tuple[str, ...]] = {
     "data": ("train", "test", "target", "center", "n_train", "subsample_seed", "labels"),
-    "kernel": ("family", "lengthscale", "amplitude", "support", "fit", "smoothness"),
+    # "amplitude": the deprecated name of signal_variance, read for one release (`_signal_variance`).
+    "kernel": ("family", "lengthscale", "signal_variance", "amplitude", "support", "fit", "smoothness"),
     "noise": ("variance", "target_condition"),
     "circuit": (
         "clock_qubits",
@@ -263,11 +265,26 @@ def _parse_kernel(v: _Validator, t: dict) -> KernelSpec:
     return KernelSpec(
         family=family,
         lengthscale=lengthscale,
-        amplitude=v.number(t, "kernel", "amplitude", d.amplitude, positive=True),
+        signal_variance=_signal_variance(v, t, d.signal_variance),
         support=v.number(t, "kernel", "support", None, positive=True),
         fit=v.boolean(t, "kernel", "fit", d.fit),
         smoothness=smooth,
     )
+
+
+def _signal_variance(v: _Validator, t: dict, default: float) -> float:
+    """``signal_variance``, or its deprecated name ``amplitude`` (one release, FutureWarning)."""
+    if "amplitude" not in t:
+        return v.number(t, "kernel", "signal_variance", default, positive=True)
+    if "signal_variance" in t:
+        raise v.fail("kernel", "amplitude", "is the deprecated name of signal_variance, which is also set; remove amplitude")
+    warnings.warn(
+        f"{v.where}: `[kernel] amplitude` is deprecated: it holds the signal variance (units of the target "
+        "squared); rename the key to `signal_variance` (`amplitude` will be removed in the next release)",
+        FutureWarning,
+        stacklevel=2,
+    )
+    return v.number(t, "kernel", "amplitude", default, positive=True)
 
 
 def _parse_noise(v: _Validator, t: dict, kernel: KernelSpec) -> NoiseSpec:

@@ -98,7 +98,7 @@ class KernelSpec:
 
     family: KernelFamily = "rbf"
     lengthscale: float | tuple[float, ...] = 1.0
-    amplitude: float = 1.0
+    signal_variance: float = 1.0
     support: float | None = None
     fit: bool = False
     smoothness: Literal[1, 2] = 1

@@ -56,11 +56,19 @@ def test_minimal_config_loads_with_defaults(tmp_path):
         ("[noise]\ntarget_condition = 1.0\n", "target_condition must be > 1"),
         ("", "\\[noise\\] needs variance"),
         ("[noise]\nvariance = 0.1\n[kernel]\nsmoothness = 2\n", "applies only to family = \"wendland\""),
+        ("[noise]\nvariance = 0.1\n[kernel]\nsignal_variance = 2\namplitude = 2\n", "deprecated name of signal_variance, which is also set"),
     ],
 )
 def test_bad_config_values(tmp_path, extra, message):
     with pytest.raises(QgpError, match=message):
         load_config(_write(tmp_path, BASE + extra))
+
+
+def test_deprecated_amplitude_key_is_read_with_a_warning_naming_signal_variance(tmp_path):
+    with pytest.warns(FutureWarning, match=r"\[kernel\] amplitude` is deprecated.*rename the key to `signal_variance`"):
+        old = load_config(_write(tmp_path, BASE + "[noise]\nvariance = 0.1\n[kernel]\namplitude = 2.5\n"))
+    new = load_config(_write(tmp_path, BASE + "[noise]\nvariance = 0.1\n[kernel]\nsignal_variance = 2.5\n"))
+    assert old.kernel == new.kernel and new.kernel.signal_variance == 2.5
 
 
 def test_missing_files(tmp_path):
@@ -123,7 +131,7 @@ def test_duplicate_inputs_without_noise(tmp_path):
 
 
 def test_api_shape_errors():
-    k = RBF(amplitude=1.0, lengthscale=1.0)
+    k = RBF(signal_variance=1.0, lengthscale=1.0)
     with pytest.raises(QgpError, match="one value per row of X"):
         build_problem(np.zeros((3, 1)), np.zeros(4), k, noise_variance=0.1)
     with pytest.raises(QgpError, match="non-finite value"):

@@ -56,7 +56,7 @@ SPARSE_MAX_DENSITY = 0.25
 _LOG_2PI = math.log(2.0 * math.pi)
 
 # ML-II search box, relative to the data so it cannot run off to degenerate fits:
-# amplitude and noise relative to the mean square of the (centred) targets, lengthscales
+# signal variance and noise relative to the mean square of the (centred) targets, lengthscales
 # relative to the spread of each input column.
 _AMPLITUDE_BOUNDS = (1e-6, 1e6)
 _NOISE_BOUNDS = (1e-10, 1e2)
@@ -324,7 +324,7 @@ def ml2_search_space(
     ----------
     X : ndarray of shape (n, d)
     yc : ndarray of shape (n,)
-        The (centred) targets; the box for amplitude and σ² scales with their mean square.
+        The (centred) targets; the box for signal variance and σ² scales with their mean square.
     kernel : Kernel
         Its own hyperparameters are the first start.
     rng : numpy.random.Generator
@@ -366,7 +366,7 @@ def fit_ml2(
     L-BFGS-B with analytic gradients (R&W 2006, eq. 5.9), from the kernel's own
     hyperparameters and from ``restarts`` further starts drawn uniformly in the log-box
     with ``rng``; the best optimum wins. σ² is fitted only when ``noise_variance`` is None.
-    The box (see ``_log_bounds``) scales with the data: amplitude and σ² relative to the
+    The box (see ``_log_bounds``) scales with the data: signal variance and σ² relative to the
     mean square of the centred targets, lengthscales relative to each input's range.
     Uses the dense Cholesky path.
     """

@@ -1,7 +1,7 @@
 """Covariance functions k(x, x′) with explicit hyperparameters.
 
-Every kernel is a frozen dataclass with an ``amplitude`` (signal variance a) and a
-``lengthscale`` ℓ (one number, or one per input dimension: automatic relevance
+Every kernel is a frozen dataclass with a ``signal_variance`` a (k(x, x), in units of the
+target squared) and a ``lengthscale`` ℓ (one number, or one per input dimension: automatic relevance
 determination). The stationary families are radial in the scaled distance
 
     r = ‖(x − x′) / ℓ‖,        k(x, x′) = a · φ(r),
@@ -27,7 +27,8 @@ k-d-tree neighbour search, so a sparse matrix never costs n² distances.
 from __future__ import annotations
 
 import math
-from abc import ABC, abstractmethod
+import warnings
+from abc import ABC, ABCMeta, abstractmethod
 from dataclasses import dataclass, field, replace
 from typing import ClassVar, Literal
 
@@ -116,23 +117,50 @@ def _check_positive(value: float, what: str, key: str) -> float:
     return value
 
 
+#: The pre-0.2 name of ``signal_variance``: accepted for one release, with a FutureWarning.
+_OLD_NAME = "amplitude"
+
+
+def _renamed_warning(where: str) -> None:
+    warnings.warn(
+        f"{where} `amplitude` is deprecated: it holds the signal variance (units of the target squared); "
+        "call it `signal_variance` (`amplitude` will be removed in the next release)",
+        FutureWarning,
+        stacklevel=3,
+    )
+
+
+class _KernelType(ABCMeta):
+    """Takes the deprecated keyword ``amplitude=`` for ``signal_variance=`` on every kernel class."""
+
+    def __call__(cls, *args, **kwargs):
+        if _OLD_NAME in kwargs:
+            if "signal_variance" in kwargs:
+                raise QgpError("give the kernel's signal_variance only (amplitude is its deprecated name), not both")
+            _renamed_warning("the kernel keyword")
+            kwargs["signal_variance"] = kwargs.pop(_OLD_NAME)
+        return super().__call__(*args, **kwargs)
+
+
 @dataclass(frozen=True)
-class Kernel(ABC):
-    """A positive-definite covariance function with amplitude a and lengthscale(s) ℓ.
+class Kernel(ABC, metaclass=_KernelType):
+    """A positive-definite covariance function with signal variance a and lengthscale(s) ℓ.
 
     ``theta`` = [log a, log ℓ₁, …] is the unconstrained parameter vector the ML-II
     optimiser works on; ``with_theta`` returns a new kernel. ``support_radius`` is the
     Euclidean distance (input units) past which k is exactly 0, or None.
     """
 
-    amplitude: float
+    signal_variance: float
     lengthscale: float | tuple[float, ...]
 
     family: ClassVar[str] = ""
 
     def __post_init__(self) -> None:
         object.__setattr__(
-            self, "amplitude", _check_positive(self.amplitude, "kernel amplitude", "`[kernel] amplitude`")
+            self,
+            "signal_variance",
+            _check_positive(self.signal_variance, "the kernel's signal variance", "`[kernel] signal_variance`"),
         )
         ell = self.lengthscale
         if np.ndim(ell) > 0:
@@ -146,6 +174,12 @@ class Kernel(ABC):
             ell = _check_positive(ell, "kernel lengthscale", "`[kernel] lengthscale`")
         object.__setattr__(self, "lengthscale", ell)
 
+    @property
+    def amplitude(self) -> float:
+        """Deprecated name of ``signal_variance`` (one release)."""
+        _renamed_warning("the kernel attribute")
+        return self.signal_variance
+
     # -- evaluation -----------------------------------------------------------------
 
     @abstractmethod
@@ -153,10 +187,10 @@ class Kernel(ABC):
         """Dense kernel matrix K[i, j] = k(X1[i], X2[j]) of shape (n1, n2); X2 = None means X1."""
 
     def diag(self, X) -> np.ndarray:
-        """k(x, x) for every row of X: the amplitude, since every φ here has φ(0) = 1."""
+        """k(x, x) for every row of X: the signal variance, since every φ here has φ(0) = 1."""
         X = _as_inputs(X)
         self._check_dims(X.shape[1])
-        return np.full(X.shape[0], self.amplitude)
+        return np.full(X.shape[0], self.signal_variance)
 
     @property
     @abstractmethod
@@ -177,7 +211,7 @@ class Kernel(ABC):
         Only pairs within the support are ever evaluated (``cKDTree.sparse_distance_matrix``
         on inputs scaled so the support is the unit ball). Exact-zero distances (the
         diagonal, duplicate points) are added explicitly because a sparse distance matrix
-        need not store them, so the diagonal is the amplitude. Equals ``self(X1, X2)``.
+        need not store them, so the diagonal is the signal variance. Equals ``self(X1, X2)``.
         """
         if self.support_radius is None:
             raise QgpError(
@@ -214,17 +248,17 @@ class Kernel(ABC):
     @property
     def theta(self) -> np.ndarray:
         """Log-hyperparameters [log a, log ℓ₁, …, log ℓ_p] (p = 1 for a scalar lengthscale)."""
-        return np.log(np.concatenate(([self.amplitude], np.atleast_1d(self.lengthscale))))
+        return np.log(np.concatenate(([self.signal_variance], np.atleast_1d(self.lengthscale))))
 
     def with_theta(self, theta) -> Kernel:
-        """A new kernel of the same family with amplitude and lengthscale(s) exp(theta)."""
+        """A new kernel of the same family with signal variance and lengthscale(s) exp(theta)."""
         theta = np.asarray(theta, dtype=float).ravel()
         n_ell = len(np.atleast_1d(self.lengthscale))
         if theta.shape != (1 + n_ell,):
             raise QgpError(f"theta must have {1 + n_ell} entries for this kernel, got {theta.size}")
         values = np.exp(theta)
         ell = tuple(values[1:]) if isinstance(self.lengthscale, tuple) else float(values[1])
-        return replace(self, amplitude=float(values[0]), lengthscale=ell)
+        return replace(self, signal_variance=float(values[0]), lengthscale=ell)
 
     @abstractmethod
     def theta_gradient(self, X) -> np.ndarray:
@@ -233,7 +267,7 @@ class Kernel(ABC):
     # -- reporting --------------------------------------------------------------------
 
     def describe(self) -> dict:
-        """JSON-ready summary: family, amplitude, lengthscale, support, taper, smoothness.
+        """JSON-ready summary: family, signal_variance, lengthscale, support, taper, smoothness.
 
         ``smoothness`` is ν for the Matérn families, k of φ_{3,k} for Wendland, and None
         for the (infinitely smooth) RBF. ``support`` is ``support_radius`` (None = unbounded).
@@ -241,7 +275,7 @@ class Kernel(ABC):
         ell = self.lengthscale
         return {
             "family": self.family,
-            "amplitude": self.amplitude,
+            "signal_variance": self.signal_variance,
             "lengthscale": list(ell) if isinstance(ell, tuple) else ell,
             "support": self.support_radius,
             "taper": None,
@@ -298,20 +332,20 @@ class _Radial(Kernel):
     def __call__(self, X1, X2=None) -> np.ndarray:
         S1, S2, _ = self._distances(X1, X2)
         # cdist of a set with itself has an exactly zero diagonal, so K[i, i] = a exactly.
-        return self.amplitude * self._phi(cdist(S1, S2))
+        return self.signal_variance * self._phi(cdist(S1, S2))
 
     def _pair_values(self, X1, X2, rows, cols) -> np.ndarray:
         ell = self._scales(X1.shape[1])
         r = np.sqrt(np.sum(((X1[rows] - X2[cols]) / ell) ** 2, axis=1))
-        return self.amplitude * self._phi(r)
+        return self.signal_variance * self._phi(r)
 
     def theta_gradient(self, X) -> np.ndarray:
         """∂K/∂log a = K; ∂K/∂log ℓ_i = −a (φ′(r)/r) (Δ_i/ℓ_i)², summed over i for scalar ℓ."""
         S, _, _ = self._distances(X, None)
         diff2 = (S[:, None, :] - S[None, :, :]) ** 2  # (n, n, d) scaled squared offsets
         r = np.sqrt(diff2.sum(axis=2))
-        K = self.amplitude * self._phi(r)
-        g = -self.amplitude * self._slope(r)
+        K = self.signal_variance * self._phi(r)
+        g = -self.signal_variance * self._slope(r)
         if isinstance(self.lengthscale, tuple):
             dell = g[:, :, None] * diff2
         else:
@@ -429,11 +463,11 @@ class Tapered(Kernel):
 
     A product of positive-definite kernels is positive definite (Schur product theorem),
     and the Wendland factor sets every pair farther apart than ``support`` (Euclidean,
-    input units) to exactly 0. ``amplitude`` and ``lengthscale`` mirror the base kernel;
+    input units) to exactly 0. ``signal_variance`` and ``lengthscale`` mirror the base kernel;
     ``theta`` covers the base hyperparameters only (the taper radius is fixed).
     """
 
-    amplitude: float = field(init=False, repr=False)
+    signal_variance: float = field(init=False, repr=False)
     lengthscale: float | tuple[float, ...] = field(init=False, repr=False)
     base: Kernel
     support: float
@@ -444,7 +478,7 @@ class Tapered(Kernel):
         object.__setattr__(
             self, "support", _check_positive(self.support, "the taper support radius", "`[kernel] support`")
         )
-        object.__setattr__(self, "amplitude", self.base.amplitude)
+        object.__setattr__(self, "signal_variance", self.base.signal_variance)
         object.__setattr__(self, "lengthscale", self.base.lengthscale)
 
     @property
@@ -532,9 +566,9 @@ def make_kernel(spec: KernelSpec, n_dims: int) -> Kernel:
             )
         ell = tuple(ell)
     if cls is Wendland:
-        kernel: Kernel = Wendland(amplitude=spec.amplitude, lengthscale=ell, smoothness=spec.smoothness)
+        kernel: Kernel = Wendland(signal_variance=spec.signal_variance, lengthscale=ell, smoothness=spec.smoothness)
     else:
-        kernel = cls(amplitude=spec.amplitude, lengthscale=ell)
+        kernel = cls(signal_variance=spec.signal_variance, lengthscale=ell)
     if spec.support is not None:
         kernel = Tapered(base=kernel, support=spec.support)
     kernel._check_dims(n_dims)

@@ -89,7 +89,7 @@ class Problem:
     @property
     def padding_diagonal(self) -> float:
         """A diagonal entry of A, k(x₁, x₁) + σ² (so inside [λmin, λmax] for any kernel; for qgp's
-        stationary kernels exactly amplitude + σ², `qgp.classical.system.padding_diagonal`)."""
+        stationary kernels exactly signal variance + σ², `qgp.classical.system.padding_diagonal`)."""
         return float(np.asarray(self.A[0, 0]).item())
 
     @cached_property
@@ -203,7 +203,7 @@ def build_problem(
 
     σ² comes from ``noise_variance``, or from ``target_condition`` (σ² = (λmax − κλmin)/(κ − 1)
     on K's spectrum), or from the ML-II fit when ``fit`` and neither is given. With ``fit`` the
-    amplitude and lengthscale(s) are always fitted (``rng`` seeds the restarts).
+    signal variance and lengthscale(s) are always fitted (``rng`` seeds the restarts).
     """
     X, y, X_test, y_test = validate_arrays(X, y, X_test, y_test)
     if noise_variance is not None and target_condition is not None:

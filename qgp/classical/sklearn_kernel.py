@@ -24,11 +24,11 @@ __all__ = ["ScikitLearnKernel", "as_kernel"]
 class ScikitLearnKernel(Kernel):
     """A scikit-learn kernel object evaluated through scikit-learn.
 
-    ``amplitude`` and ``lengthscale`` are placeholders the base class asks for (1.0): nothing here
+    ``signal_variance`` and ``lengthscale`` are placeholders the base class asks for (1.0): nothing here
     reads them — the diagonal comes from ``kernel.diag`` and A's padding from A itself.
     """
 
-    amplitude: float = 1.0
+    signal_variance: float = 1.0
     lengthscale: float = 1.0
     kernel: object = field(default=None, compare=False)
 

@@ -6,7 +6,7 @@ max(Gershgorin, σ²), because K is positive semi-definite so λmin(A) ≥ σ² 
 useless below for dense kernel matrices, whose off-diagonal row sums exceed the diagonal).
 
 Padding to 2^m (for m system qubits) uses a documented scheme that leaves every GP answer and κ
-unchanged: A is extended block-diagonally with d·I, where d = amplitude + σ² is a diagonal
+unchanged: A is extended block-diagonally with d·I, where d = signal variance + σ² is a diagonal
 entry of A (so d ∈ [λmin, λmax] without an eigensolve), and vectors (y, k*) are padded with
 zeros. Then A_pad⁻¹ = diag(A⁻¹, I/d), so k*ᵀA⁻¹y and k*ᵀA⁻¹k* are untouched and the spectrum
 gains only the value d, which lies inside [λmin, λmax].
@@ -153,9 +153,9 @@ def padded_size(n: int) -> int:
     return max(2, 1 << (n - 1).bit_length())
 
 
-def padding_diagonal(amplitude: float, noise_variance: float) -> float:
-    """d = amplitude + σ², a diagonal entry of A and so inside [λmin, λmax]."""
-    return float(amplitude) + float(noise_variance)
+def padding_diagonal(signal_variance: float, noise_variance: float) -> float:
+    """d = signal variance + σ², a diagonal entry of A and so inside [λmin, λmax]."""
+    return float(signal_variance) + float(noise_variance)
 
 
 def pad_matrix(A, diagonal: float) -> np.ndarray:

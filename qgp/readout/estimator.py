@@ -77,7 +77,7 @@ class QuantumGPRegressor(_Mixin, _Base):
     Parameters
     ----------
     kernel : qgp Kernel or scikit-learn kernel, optional
-        Default ``RBF(amplitude=1, lengthscale=1)``.
+        Default ``RBF(signal_variance=1, lengthscale=1)``.
     noise_variance, target_condition : float, optional
         σ², or the κ of A = K + σ²I that sets it (exactly one).
     method, clock_qubits, evolution, encoding, degree, target_error, trotter_steps :
@@ -169,7 +169,7 @@ class QuantumGPRegressor(_Mixin, _Base):
         self
         """
         self.circuit_, self.readout_ = self._settings()
-        self.kernel_ = as_kernel(RBF(amplitude=1.0, lengthscale=1.0) if self.kernel is None else self.kernel)
+        self.kernel_ = as_kernel(RBF(signal_variance=1.0, lengthscale=1.0) if self.kernel is None else self.kernel)
         self.feature_names_in_ = _columns(X)
         X_, y_, _, _ = validate_arrays(np.asarray(X, dtype=float), np.asarray(y, dtype=float).ravel())
         self.n_features_in_ = X_.shape[1]

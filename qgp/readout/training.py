@@ -85,7 +85,7 @@ def fit_ml2_circuit(
     center: bool = True,
     progress: Progress | None = None,
 ) -> CircuitFit:
-    """Maximise the circuits' log marginal likelihood over amplitude, lengthscale(s) and σ².
+    """Maximise the circuits' log marginal likelihood over signal variance, lengthscale(s) and σ².
 
     Parameters
     ----------

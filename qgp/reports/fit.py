@@ -99,7 +99,7 @@ def _hyperparameters(kernel, noise_variance: float) -> dict:
     ell = kernel.lengthscale
     return {
         "lengthscale": list(ell) if isinstance(ell, tuple) else float(ell),
-        "signal_variance": float(kernel.amplitude),
+        "signal_variance": float(kernel.signal_variance),
         "noise_variance": float(noise_variance),
     }
 

@@ -126,7 +126,7 @@ def _laws(fits: dict, kernel, noise_variance: float) -> ScaleLaws:
         condition_number=fits["condition_number"],
         eigenvalue_min=fits["eigenvalue_min"],
         sparsity=sparsity,
-        norm_max=float(kernel.amplitude) + noise_variance,
+        norm_max=float(kernel.signal_variance) + noise_variance,
     )
 
 

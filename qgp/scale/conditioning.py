@@ -500,7 +500,7 @@ def _matrix_measures(A, kernel: Kernel, noise: float, lower_bound: float, lcu_li
         sparsity, nonzeros = n, n * n  # by definition: every entry is mathematically non-zero
     else:
         sparsity, nonzeros = int(per_row.max()), int(per_row.sum())
-    diagonal = padding_diagonal(kernel.amplitude, noise)
+    diagonal = padding_diagonal(kernel.signal_variance, noise)
     lam_max = None if spectrum is None else spectrum.eigenvalue_max
     alpha_lcu = None
     if n <= lcu_limit:

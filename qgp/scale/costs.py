@@ -76,7 +76,7 @@ class ScaleLaws:
     """The audit's growth laws the costs extrapolate with.
 
     ``sparsity`` is None for a kernel without finite support (s = n). ``norm_max`` = ‖A‖_max =
-    amplitude + σ², the same at every n.
+    signal variance + σ², the same at every n.
     """
 
     condition_number: GrowthFit

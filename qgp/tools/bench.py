@@ -299,7 +299,7 @@ target = "ice_cm"
 [base.kernel]
 family = "rbf"
 lengthscale = 45.0
-amplitude = 16.0
+signal_variance = 16.0
 
 [base.noise]
 target_condition = 20.0

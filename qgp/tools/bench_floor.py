@@ -175,7 +175,7 @@ def large_n(n_train: int, n_test: int, clock_qubits: int, say: Progress = print)
     rng = np.random.default_rng(7)
     X = np.sort(rng.uniform(0.0, 100.0, n_train))[:, None]
     y = np.sin(X[:, 0] / 9.0) + 0.1 * rng.normal(size=n_train)
-    kernel = make_kernel(KernelSpec(family="rbf", lengthscale=4.0, amplitude=1.0), 1)
+    kernel = make_kernel(KernelSpec(family="rbf", lengthscale=4.0, signal_variance=1.0), 1)
     problem = build_problem(X, y, kernel, target_condition=20.0, X_test=np.linspace(5.0, 95.0, n_test)[:, None])
     clear_caches()
     say(f"large problem: n = {n_train}, {n_test} test points, c = {clock_qubits}")

@@ -66,21 +66,21 @@ def _sklearn_kernel(kernel):
     else:
         nu = 1.5 if isinstance(kernel, Matern32) else 2.5
         base = skk.Matern(ell, length_scale_bounds="fixed", nu=nu)
-    return skk.ConstantKernel(kernel.amplitude, constant_value_bounds="fixed") * base
+    return skk.ConstantKernel(kernel.signal_variance, constant_value_bounds="fixed") * base
 
 
 # -- exact GP against scikit-learn -------------------------------------------------------
 
 SKLEARN_CASES = [
-    (RBF(amplitude=1.4, lengthscale=0.8), 1),
-    (Matern32(amplitude=1.4, lengthscale=0.8), 1),
-    (Matern52(amplitude=1.4, lengthscale=0.8), 1),
-    (RBF(amplitude=0.9, lengthscale=1.3), 3),
-    (Matern32(amplitude=0.9, lengthscale=1.3), 3),
-    (Matern52(amplitude=0.9, lengthscale=1.3), 3),
-    (RBF(amplitude=2.1, lengthscale=(0.7, 1.5, 3.0)), 3),  # ARD
-    (Matern32(amplitude=2.1, lengthscale=(0.7, 1.5, 3.0)), 3),  # ARD
-    (Matern52(amplitude=2.1, lengthscale=(0.7, 1.5, 3.0)), 3),  # ARD
+    (RBF(signal_variance=1.4, lengthscale=0.8), 1),
+    (Matern32(signal_variance=1.4, lengthscale=0.8), 1),
+    (Matern52(signal_variance=1.4, lengthscale=0.8), 1),
+    (RBF(signal_variance=0.9, lengthscale=1.3), 3),
+    (Matern32(signal_variance=0.9, lengthscale=1.3), 3),
+    (Matern52(signal_variance=0.9, lengthscale=1.3), 3),
+    (RBF(signal_variance=2.1, lengthscale=(0.7, 1.5, 3.0)), 3),  # ARD
+    (Matern32(signal_variance=2.1, lengthscale=(0.7, 1.5, 3.0)), 3),  # ARD
+    (Matern52(signal_variance=2.1, lengthscale=(0.7, 1.5, 3.0)), 3),  # ARD
 ]
 
 
@@ -112,7 +112,7 @@ def test_exact_gp_matches_scikit_learn(kernel, n_dims, center):
 
 def test_k_star_and_solve_are_the_pieces_of_the_mean():
     X, y, Xs = _toy_data(30, 2, seed=4)
-    gp = condition(X, y, Matern52(amplitude=1.0, lengthscale=0.9), 0.1)
+    gp = condition(X, y, Matern52(signal_variance=1.0, lengthscale=0.9), 0.1)
     ks = gp.k_star(Xs)
     assert ks.shape == (30, 25)
     _assert_absolute(gp.solve(gp.y_centered), gp.alpha, 1e-12, "A⁻¹(y − m) = α")
@@ -125,9 +125,9 @@ def test_k_star_and_solve_are_the_pieces_of_the_mean():
 @pytest.mark.parametrize(
     "kernel",
     [
-        Tapered(base=RBF(amplitude=1.2, lengthscale=0.3), support=0.25),
-        Tapered(base=Matern32(amplitude=1.2, lengthscale=(0.3, 0.6)), support=0.3),
-        Wendland(amplitude=1.2, lengthscale=0.3, smoothness=2),
+        Tapered(base=RBF(signal_variance=1.2, lengthscale=0.3), support=0.25),
+        Tapered(base=Matern32(signal_variance=1.2, lengthscale=(0.3, 0.6)), support=0.3),
+        Wendland(signal_variance=1.2, lengthscale=0.3, smoothness=2),
     ],
 )
 def test_sparse_path_agrees_with_dense(kernel):
@@ -200,9 +200,9 @@ def test_unknown_method_is_refused():
 @pytest.mark.parametrize(
     ("kernel", "fit_noise"),
     [
-        (RBF(amplitude=1.1, lengthscale=(0.6, 1.7)), True),
-        (Matern32(amplitude=0.8, lengthscale=0.9), False),
-        (Tapered(base=Matern52(amplitude=0.8, lengthscale=0.9), support=2.5), True),
+        (RBF(signal_variance=1.1, lengthscale=(0.6, 1.7)), True),
+        (Matern32(signal_variance=0.8, lengthscale=0.9), False),
+        (Tapered(base=Matern52(signal_variance=0.8, lengthscale=0.9), support=2.5), True),
     ],
 )
 def test_lml_gradient_matches_finite_differences(kernel, fit_noise):
@@ -267,7 +267,7 @@ def test_ml2_matches_scikit_learn_on_mauna_loa():
     from sklearn.gaussian_process import kernels as skk
 
     t, y = _mauna_loa_window()
-    ours = fit_ml2(t, y, RBF(amplitude=1.0, lengthscale=1.0), None, np.random.default_rng(2026), restarts=5)
+    ours = fit_ml2(t, y, RBF(signal_variance=1.0, lengthscale=1.0), None, np.random.default_rng(2026), restarts=5)
 
     ref = GaussianProcessRegressor(
         kernel=skk.ConstantKernel(1.0) * skk.RBF(1.0) + skk.WhiteKernel(0.1),

@@ -78,7 +78,7 @@ def test_wendland_support_is_exact(smoothness):
 
 def test_wendland_kernel_support_in_input_units():
     # ARD: support radius 0.5 along x, 2.0 along y; the safe Euclidean bound is the largest.
-    k = Wendland(amplitude=3.0, lengthscale=(0.5, 2.0), smoothness=2)
+    k = Wendland(signal_variance=3.0, lengthscale=(0.5, 2.0), smoothness=2)
     assert k.support_radius == 2.0
     origin = np.zeros((1, 2))
     at_edge = np.array([[0.5, 0.0], [0.0, 2.0], [0.6, 0.0], [0.0, 2.5]])
@@ -87,7 +87,7 @@ def test_wendland_kernel_support_in_input_units():
 
 
 def test_wendland_rejects_more_than_three_dimensions():
-    k = Wendland(amplitude=1.0, lengthscale=1.0)
+    k = Wendland(signal_variance=1.0, lengthscale=1.0)
     X = np.zeros((3, 4))
     for evaluate in (k, k.diag, k.sparse):
         with pytest.raises(QgpError, match="up to 3 dimensions"):
@@ -96,7 +96,7 @@ def test_wendland_rejects_more_than_three_dimensions():
 
 def test_wendland_rejects_bad_smoothness():
     with pytest.raises(QgpError, match="smoothness must be 1 or 2"):
-        Wendland(amplitude=1.0, lengthscale=1.0, smoothness=3)
+        Wendland(signal_variance=1.0, lengthscale=1.0, smoothness=3)
     with pytest.raises(QgpError, match="smoothness must be 1 or 2"):
         wendland_phi(0.5, 3)
 
@@ -116,7 +116,7 @@ def point_sets(draw):
 @PROPERTY
 @given(X=point_sets(), radius=st.floats(0.1, 5.0), amplitude=st.floats(0.1, 10.0), smoothness=st.sampled_from([1, 2]))
 def test_wendland_matrix_is_positive_semidefinite(X, radius, amplitude, smoothness):
-    K = Wendland(amplitude=amplitude, lengthscale=radius, smoothness=smoothness)(X)
+    K = Wendland(signal_variance=amplitude, lengthscale=radius, smoothness=smoothness)(X)
     floor = -1e-10 * len(X) * amplitude  # round-off allowance of a symmetric eigensolve
     assert _min_eigenvalue(K) >= floor, f"λmin = {_min_eigenvalue(K):.3e} < {floor:.3e}"
 
@@ -124,7 +124,7 @@ def test_wendland_matrix_is_positive_semidefinite(X, radius, amplitude, smoothne
 @PROPERTY
 @given(X=point_sets(), ell=st.floats(0.1, 3.0), support=st.floats(0.1, 5.0), amplitude=st.floats(0.1, 10.0))
 def test_tapered_rbf_matrix_is_positive_semidefinite(X, ell, support, amplitude):
-    K = Tapered(base=RBF(amplitude=amplitude, lengthscale=ell), support=support)(X)
+    K = Tapered(base=RBF(signal_variance=amplitude, lengthscale=ell), support=support)(X)
     floor = -1e-10 * len(X) * amplitude
     assert _min_eigenvalue(K) >= floor, f"λmin = {_min_eigenvalue(K):.3e} < {floor:.3e}"
 
@@ -135,9 +135,9 @@ def test_tapered_rbf_matrix_is_positive_semidefinite(X, ell, support, amplitude)
 @pytest.mark.parametrize(
     ("ours", "family", "nu"),
     [
-        (RBF(amplitude=1.7, lengthscale=(0.6, 1.3, 2.2)), "rbf", None),
-        (Matern32(amplitude=0.4, lengthscale=0.9), "matern", 1.5),
-        (Matern52(amplitude=2.5, lengthscale=(0.6, 1.3, 2.2)), "matern", 2.5),
+        (RBF(signal_variance=1.7, lengthscale=(0.6, 1.3, 2.2)), "rbf", None),
+        (Matern32(signal_variance=0.4, lengthscale=0.9), "matern", 1.5),
+        (Matern52(signal_variance=2.5, lengthscale=(0.6, 1.3, 2.2)), "matern", 2.5),
     ],
 )
 def test_stationary_matrix_matches_scikit_learn(ours, family, nu):
@@ -146,7 +146,7 @@ def test_stationary_matrix_matches_scikit_learn(ours, family, nu):
 
     ell = np.atleast_1d(ours.lengthscale)
     base = skk.RBF(ell) if family == "rbf" else skk.Matern(ell, nu=nu)
-    reference = skk.ConstantKernel(ours.amplitude) * base
+    reference = skk.ConstantKernel(ours.signal_variance) * base
     rng = np.random.default_rng(7)
     X1, X2 = rng.normal(size=(25, 3)), rng.normal(size=(11, 3))
     _assert_close(ours(X1, X2), reference(X1, X2), rtol=1e-12, atol=1e-15, what="cross matrix")
@@ -156,14 +156,14 @@ def test_stationary_matrix_matches_scikit_learn(ours, family, nu):
 @pytest.mark.parametrize(
     "kernel",
     [
-        RBF(amplitude=2.0, lengthscale=0.7),
-        Matern32(amplitude=2.0, lengthscale=(0.7, 1.1)),
-        Matern52(amplitude=2.0, lengthscale=0.7),
-        Wendland(amplitude=2.0, lengthscale=1.5, smoothness=2),
-        Tapered(base=Matern52(amplitude=2.0, lengthscale=0.7), support=1.2),
+        RBF(signal_variance=2.0, lengthscale=0.7),
+        Matern32(signal_variance=2.0, lengthscale=(0.7, 1.1)),
+        Matern52(signal_variance=2.0, lengthscale=0.7),
+        Wendland(signal_variance=2.0, lengthscale=1.5, smoothness=2),
+        Tapered(base=Matern52(signal_variance=2.0, lengthscale=0.7), support=1.2),
     ],
 )
-def test_diag_is_amplitude_and_matrix_symmetric(kernel):
+def test_diag_is_signal_variance_and_matrix_symmetric(kernel):
     X = np.random.default_rng(3).uniform(-1, 1, size=(20, 2))
     K = kernel(X)
     assert np.array_equal(np.diag(K), kernel.diag(X))
@@ -172,7 +172,7 @@ def test_diag_is_amplitude_and_matrix_symmetric(kernel):
 
 
 def test_one_dimensional_array_is_read_as_points():
-    k = RBF(amplitude=1.0, lengthscale=0.5)
+    k = RBF(signal_variance=1.0, lengthscale=0.5)
     x = np.linspace(0, 1, 5)
     assert np.array_equal(k(x), k(x[:, None]))
 
@@ -181,11 +181,11 @@ def test_one_dimensional_array_is_read_as_points():
 
 
 SPARSE_CASES = [
-    Wendland(amplitude=1.5, lengthscale=0.3, smoothness=1),
-    Wendland(amplitude=1.5, lengthscale=(0.2, 0.5), smoothness=2),
-    Tapered(base=RBF(amplitude=0.8, lengthscale=0.4), support=0.35),
-    Tapered(base=Matern32(amplitude=0.8, lengthscale=(0.3, 0.9)), support=0.5),
-    Tapered(base=Wendland(amplitude=0.8, lengthscale=0.2), support=0.5),
+    Wendland(signal_variance=1.5, lengthscale=0.3, smoothness=1),
+    Wendland(signal_variance=1.5, lengthscale=(0.2, 0.5), smoothness=2),
+    Tapered(base=RBF(signal_variance=0.8, lengthscale=0.4), support=0.35),
+    Tapered(base=Matern32(signal_variance=0.8, lengthscale=(0.3, 0.9)), support=0.5),
+    Tapered(base=Wendland(signal_variance=0.8, lengthscale=0.2), support=0.5),
 ]
 
 
@@ -201,13 +201,13 @@ def test_sparse_equals_dense(kernel):
         assert S.format == "csr"
         _assert_close(S.toarray(), dense, rtol=1e-13, atol=1e-15, what=f"sparse vs dense {kernel}")
         assert S.nnz == np.count_nonzero(dense), "sparse result has a different pattern"
-    assert np.all(kernel.sparse(X).diagonal() == kernel.amplitude)
+    assert np.all(kernel.sparse(X).diagonal() == kernel.signal_variance)
     assert 0 < kernel.sparse(X).nnz < 0.5 * len(X) ** 2
 
 
 @pytest.mark.parametrize("n_dims", [1, 3])
 def test_tapered_is_zero_beyond_support(n_dims):
-    k = Tapered(base=RBF(amplitude=1.0, lengthscale=10.0), support=0.5)
+    k = Tapered(base=RBF(signal_variance=1.0, lengthscale=10.0), support=0.5)
     rng = np.random.default_rng(5)
     X1, X2 = rng.uniform(0, 2, size=(60, n_dims)), rng.uniform(0, 2, size=(50, n_dims))
     distance = np.linalg.norm(X1[:, None, :] - X2[None, :, :], axis=2)
@@ -225,42 +225,42 @@ def test_support_radius_of_tapered_takes_the_tighter_support():
 
 def test_sparse_needs_finite_support():
     with pytest.raises(QgpError, match="unbounded support"):
-        Matern52(amplitude=1.0, lengthscale=1.0).sparse(np.zeros((4, 1)))
+        Matern52(signal_variance=1.0, lengthscale=1.0).sparse(np.zeros((4, 1)))
 
 
 # -- hyperparameters ---------------------------------------------------------------------
 
 
 def test_theta_round_trip_and_immutability():
-    k = Matern32(amplitude=2.0, lengthscale=(0.5, 4.0))
+    k = Matern32(signal_variance=2.0, lengthscale=(0.5, 4.0))
     _assert_close(k.theta, np.log([2.0, 0.5, 4.0]), rtol=1e-15, what="theta")
     k2 = k.with_theta(np.log([3.0, 1.0, 2.0]))
     assert isinstance(k2, Matern32) and k2 is not k
     _assert_close(k2.lengthscale, [1.0, 2.0], rtol=1e-15, what="lengthscale")
-    assert k.amplitude == 2.0  # original untouched
+    assert k.signal_variance == 2.0  # original untouched
     with pytest.raises(dataclasses.FrozenInstanceError):
-        k.amplitude = 5.0  # type: ignore[misc]
+        k.signal_variance = 5.0  # type: ignore[misc]
     assert isinstance(RBF(1.0, 0.5).with_theta([0.0, 0.0]).lengthscale, float)
 
 
 def test_tapered_theta_covers_base_only():
-    k = Tapered(base=RBF(amplitude=2.0, lengthscale=0.5), support=1.5)
+    k = Tapered(base=RBF(signal_variance=2.0, lengthscale=0.5), support=1.5)
     _assert_close(k.theta, np.log([2.0, 0.5]), rtol=1e-15, what="tapered theta")
     k2 = k.with_theta(np.log([1.0, 0.25]))
     assert isinstance(k2, Tapered) and k2.support == 1.5
-    assert k2.amplitude == pytest.approx(1.0) and k2.lengthscale == pytest.approx(0.25)
+    assert k2.signal_variance == pytest.approx(1.0) and k2.lengthscale == pytest.approx(0.25)
 
 
 @pytest.mark.parametrize(
     "kernel",
     [
-        RBF(amplitude=1.3, lengthscale=0.8),
-        RBF(amplitude=1.3, lengthscale=(0.8, 1.4)),
-        Matern32(amplitude=0.7, lengthscale=(0.8, 1.4)),
-        Matern52(amplitude=0.7, lengthscale=1.1),
-        Wendland(amplitude=1.1, lengthscale=(1.5, 2.0), smoothness=1),
-        Wendland(amplitude=1.1, lengthscale=1.8, smoothness=2),
-        Tapered(base=Matern52(amplitude=0.9, lengthscale=(0.6, 0.9)), support=1.6),
+        RBF(signal_variance=1.3, lengthscale=0.8),
+        RBF(signal_variance=1.3, lengthscale=(0.8, 1.4)),
+        Matern32(signal_variance=0.7, lengthscale=(0.8, 1.4)),
+        Matern52(signal_variance=0.7, lengthscale=1.1),
+        Wendland(signal_variance=1.1, lengthscale=(1.5, 2.0), smoothness=1),
+        Wendland(signal_variance=1.1, lengthscale=1.8, smoothness=2),
+        Tapered(base=Matern52(signal_variance=0.9, lengthscale=(0.6, 0.9)), support=1.6),
     ],
 )
 def test_theta_gradient_matches_finite_differences(kernel):
@@ -276,10 +276,10 @@ def test_theta_gradient_matches_finite_differences(kernel):
 
 
 def test_describe_is_json_ready():
-    plain = json.loads(json.dumps(Matern52(amplitude=2.0, lengthscale=(1.0, 2.0)).describe()))
+    plain = json.loads(json.dumps(Matern52(signal_variance=2.0, lengthscale=(1.0, 2.0)).describe()))
     assert plain == {
         "family": "matern52",
-        "amplitude": 2.0,
+        "signal_variance": 2.0,
         "lengthscale": [1.0, 2.0],
         "support": None,
         "taper": None,
@@ -308,7 +308,7 @@ def test_make_kernel_builds_the_family(spec, n_dims, cls):
     k = make_kernel(spec, n_dims)
     assert type(k) is cls and isinstance(k, Kernel)
     assert k.family == spec.family
-    assert k.amplitude == spec.amplitude
+    assert k.signal_variance == spec.signal_variance
     if cls is Wendland:
         assert k.smoothness == 2
 
@@ -321,17 +321,17 @@ def test_make_kernel_lengthscale_count_mismatch():
 
 def test_evaluation_lengthscale_count_mismatch():
     with pytest.raises(QgpError, match=r"`\[kernel\] lengthscale` has 2 values but the inputs have 3"):
-        RBF(amplitude=1.0, lengthscale=(1.0, 2.0))(np.zeros((2, 3)))
+        RBF(signal_variance=1.0, lengthscale=(1.0, 2.0))(np.zeros((2, 3)))
 
 
 @pytest.mark.parametrize(
     ("kwargs", "message"),
     [
-        ({"amplitude": 0.0, "lengthscale": 1.0}, r"amplitude must be a positive finite number .* `\[kernel\] amplitude` > 0"),
-        ({"amplitude": -2.0, "lengthscale": 1.0}, r"amplitude must be a positive"),
-        ({"amplitude": 1.0, "lengthscale": -1.0}, r"lengthscale must be a positive finite number .* `\[kernel\] lengthscale` > 0"),
-        ({"amplitude": 1.0, "lengthscale": (1.0, 0.0)}, r"every kernel lengthscale must be a positive"),
-        ({"amplitude": 1.0, "lengthscale": math.inf}, r"lengthscale must be a positive finite"),
+        ({"signal_variance": 0.0, "lengthscale": 1.0}, r"signal variance must be a positive finite number .* `\[kernel\] signal_variance` > 0"),
+        ({"signal_variance": -2.0, "lengthscale": 1.0}, r"signal variance must be a positive"),
+        ({"signal_variance": 1.0, "lengthscale": -1.0}, r"lengthscale must be a positive finite number .* `\[kernel\] lengthscale` > 0"),
+        ({"signal_variance": 1.0, "lengthscale": (1.0, 0.0)}, r"every kernel lengthscale must be a positive"),
+        ({"signal_variance": 1.0, "lengthscale": math.inf}, r"lengthscale must be a positive finite"),
     ],
 )
 def test_non_positive_hyperparameters_are_refused(kwargs, message):
@@ -347,3 +347,16 @@ def test_make_kernel_dimension_limits():
     with pytest.raises(QgpError, match=r"`\[kernel\] support` > 0"):
         make_kernel(KernelSpec(family="rbf", support=0.0), 2)
     assert isinstance(make_kernel(KernelSpec(family="rbf"), 8), RBF)  # no limit without compact support
+
+
+# -- the deprecated name `amplitude` (one release) ---------------------------------------------------
+
+
+def test_amplitude_keyword_still_works_with_a_warning_naming_signal_variance():
+    with pytest.warns(FutureWarning, match="signal_variance"):
+        old = Matern32(amplitude=2.5, lengthscale=0.7)
+    assert old == Matern32(signal_variance=2.5, lengthscale=0.7)
+    with pytest.warns(FutureWarning, match="signal_variance"):
+        assert old.amplitude == 2.5
+    with pytest.raises(QgpError, match="not both"):
+        RBF(amplitude=1.0, signal_variance=1.0, lengthscale=1.0)

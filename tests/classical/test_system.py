@@ -21,7 +21,7 @@ def _points(seed, n, d=1, scale=5.0):
 def test_bounds_enclose_spectrum(seed, n, noise):
     # Gershgorin circle theorem (Gershgorin 1931) above; λmin(K + σ²I) ≥ σ² for PSD K below.
     X = _points(seed, n, 2)
-    A = regularise(RBF(amplitude=1.3, lengthscale=0.8)(X), noise)
+    A = regularise(RBF(signal_variance=1.3, lengthscale=0.8)(X), noise)
     lo, hi = eigenvalue_bounds(A, noise)
     eig = np.linalg.eigvalsh(A)
     assert lo <= eig[0] * (1 + 1e-12), (lo, eig[0])
@@ -34,7 +34,7 @@ def test_bounds_enclose_spectrum(seed, n, noise):
 def test_target_condition_is_hit(seed, target):
     # κ(K + σ²I) = (λmax + σ²)/(λmin + σ²) for symmetric PSD K (common practice: spectral shift).
     X = _points(seed, 12)
-    K = Matern32(amplitude=2.0, lengthscale=1.5)(X)
+    K = Matern32(signal_variance=2.0, lengthscale=1.5)(X)
     eig = np.linalg.eigvalsh(K)
     if eig[-1] / max(eig[0], 1e-300) <= target:
         pytest.skip("kernel matrix already better conditioned than the target")
@@ -54,10 +54,10 @@ def test_target_condition_unreachable_is_refused():
 def test_taper_radius_hits_sparsity(target):
     X = _points(3, 40, 2, scale=10.0)
     radius, achieved = taper_radius_for_sparsity(X, target)
-    K = Tapered(RBF(amplitude=1.0, lengthscale=2.0), radius)(X)
+    K = Tapered(RBF(signal_variance=1.0, lengthscale=2.0), radius)(X)
     assert sparsity(K) == achieved == target
     # A slightly larger radius must exceed the target (the radius is the largest admissible).
-    K_more = Tapered(RBF(amplitude=1.0, lengthscale=2.0), radius * (1 + 1e-9))(X)
+    K_more = Tapered(RBF(signal_variance=1.0, lengthscale=2.0), radius * (1 + 1e-9))(X)
     assert sparsity(K_more) > target
 
 
@@ -67,7 +67,7 @@ def test_taper_cost_reports_accuracy_change():
     y = np.sin(X[:, 0])
     Xs = np.linspace(0, 10, 50)[:, None]
     ys = np.sin(Xs[:, 0])
-    k = RBF(amplitude=1.0, lengthscale=1.0)
+    k = RBF(signal_variance=1.0, lengthscale=1.0)
     wide = taper_cost(X, y, Xs, ys, k, 1e-2, radius=20.0)
     narrow = taper_cost(X, y, Xs, ys, k, 1e-2, radius=1.0)
     assert narrow.sparsity < wide.sparsity
@@ -83,7 +83,7 @@ def test_padding_changes_no_answer(seed, n):
     rng = np.random.default_rng(seed)
     X = rng.uniform(0, 4, size=(n, 1))
     amp, s2 = 1.7, 0.05
-    A = regularise(RBF(amplitude=amp, lengthscale=0.7)(X), s2)
+    A = regularise(RBF(signal_variance=amp, lengthscale=0.7)(X), s2)
     y, k = rng.normal(size=n), rng.normal(size=n)
     P = pad_matrix(A, amp + s2)
     size = padded_size(n)
@@ -104,7 +104,7 @@ def test_padded_gp_mean_matches_exact_gp():
     X = rng.uniform(0, 3, size=(11, 2))
     y = rng.normal(size=11)
     Xs = rng.uniform(0, 3, size=(7, 2))
-    kern, s2 = RBF(amplitude=1.0, lengthscale=1.2), 0.1
+    kern, s2 = RBF(signal_variance=1.0, lengthscale=1.2), 0.1
     gp = condition(X, y, kern, s2, center=False)
     P = pad_matrix(regularise(kern(X), s2), 1.0 + s2)
     ks = np.vstack([kern(X, Xs), np.zeros((16 - 11, 7))])
@@ -114,7 +114,7 @@ def test_padded_gp_mean_matches_exact_gp():
 
 def test_diagnostics_of_sparse_and_dense_agree():
     X = _points(2, 30, 1, scale=20.0)
-    kern = Tapered(RBF(amplitude=1.0, lengthscale=1.0), 2.5)
+    kern = Tapered(RBF(signal_variance=1.0, lengthscale=1.0), 2.5)
     dense = diagnose(regularise(kern(X), 0.1), 0.1)
     sparse = diagnose(regularise(kern.sparse(X), 0.1), 0.1)
     assert dense.sparsity == sparse.sparsity

@@ -64,7 +64,7 @@ def test_cao_example_as_a_gp_is_exact():
     A = _cao_matrix()
     s2 = 0.5
     K = A - s2 * np.eye(4)
-    kern = _FixedMatrix(amplitude=1.0, lengthscale=1.0, matrix=tuple(map(tuple, K)))
+    kern = _FixedMatrix(signal_variance=1.0, lengthscale=1.0, matrix=tuple(map(tuple, K)))
     y = np.array([1.0, 2.0, -1.0, 0.5])
     p = build_problem(np.arange(4.0), y, kern, noise_variance=s2, X_test=np.array([0.0, 2.0, 3.0]), center=False)
     np.testing.assert_allclose(p.A, A, atol=1e-15)
@@ -91,7 +91,7 @@ def test_exact_columns_match_scikit_learn():
     cfg, p = _demo()
     r = infer(p, replace(cfg.circuit, clock_qubits=4), EXACT, progress=None)
     gpr = GaussianProcessRegressor(
-        ConstantKernel(p.kernel.amplitude, "fixed") * SkRBF(p.kernel.lengthscale, "fixed"),
+        ConstantKernel(p.kernel.signal_variance, "fixed") * SkRBF(p.kernel.lengthscale, "fixed"),
         alpha=p.noise_variance,
         optimizer=None,
     ).fit(p.X, p.y - p.y.mean())
@@ -106,7 +106,7 @@ def _random_problem(seed=3, n=6):
     X = rng.uniform(0, 5, size=(n, 2))
     y = np.sin(X[:, 0]) + 0.3 * X[:, 1]
     Xs = rng.uniform(0, 5, size=(5, 2))
-    return build_problem(X, y, RBF(amplitude=1.0, lengthscale=1.3), target_condition=8.0, X_test=Xs)
+    return build_problem(X, y, RBF(signal_variance=1.0, lengthscale=1.3), target_condition=8.0, X_test=Xs)
 
 
 @pytest.mark.parametrize(
@@ -245,7 +245,7 @@ def test_aer_sampled_confidence_intervals_cover_at_the_stated_rate():
     # above; 60 seeds × 8 test points = 480 intervals per quantity).
     rng = np.random.default_rng(3)  # the inputs of _random_problem, with 8 test points
     X = rng.uniform(0, 5, size=(6, 2))
-    p = build_problem(X, np.sin(X[:, 0]) + 0.3 * X[:, 1], RBF(amplitude=1.0, lengthscale=1.3),
+    p = build_problem(X, np.sin(X[:, 0]) + 0.3 * X[:, 1], RBF(signal_variance=1.0, lengthscale=1.3),
                       target_condition=8.0, X_test=rng.uniform(0, 5, size=(8, 2)))
     circuit = CircuitSettings(clock_qubits=4, evolution="exact")
     ref = infer(p, circuit, ReadoutSettings(strategy="per-point"), progress=None)

@@ -25,7 +25,7 @@ def _diabetes(n: int, noise: float = 0.05):
     X, y = load_diabetes(return_X_y=True)
     x = X[:n, 2:3] * 10.0  # bmi, standardised by the package to norm 1 per column; ×10 for a unit-ish range
     t = (y[:n] - y.mean()) / y.std()
-    return build_problem(x, t, RBF(amplitude=1.0, lengthscale=0.3), noise_variance=noise)
+    return build_problem(x, t, RBF(signal_variance=1.0, lengthscale=0.3), noise_variance=noise)
 
 
 def _relative(a, b):

@@ -248,7 +248,7 @@ def test_circuits_built_separately_do_not_share_a_prefix():
 def _problem(n_test: int = 5):
     x = np.linspace(0.0, 1.0, 4)
     y = np.sin(3 * x)
-    return build_problem(x, y, RBF(amplitude=1.0, lengthscale=0.4), noise_variance=0.1, X_test=np.linspace(-0.1, 1.1, n_test))
+    return build_problem(x, y, RBF(signal_variance=1.0, lengthscale=0.4), noise_variance=0.1, X_test=np.linspace(-0.1, 1.1, n_test))
 
 
 def _same(r1, r2) -> float:

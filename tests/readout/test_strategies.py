@@ -24,7 +24,7 @@ def _problem(n: int, n_test: int):
     rng = np.random.default_rng(3)
     X = np.sort(rng.uniform(0, 10, n))[:, None]
     y = np.sin(X[:, 0]) + 0.1 * rng.normal(size=n)
-    return build_problem(X, y, RBF(amplitude=1.0, lengthscale=1.5), target_condition=15.0, X_test=np.linspace(0.5, 9.5, n_test)[:, None])
+    return build_problem(X, y, RBF(signal_variance=1.0, lengthscale=1.5), target_condition=15.0, X_test=np.linspace(0.5, 9.5, n_test)[:, None])
 
 
 @pytest.mark.parametrize(

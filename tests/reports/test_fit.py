@@ -36,7 +36,7 @@ n_train = 8
 [kernel]
 family = "rbf"
 lengthscale = 45.0
-amplitude = 16.0
+signal_variance = 16.0
 
 [noise]
 variance = 4.0

@@ -49,7 +49,7 @@ def _problem(n: int = 6, n_test: int = 5, seed: int = 3):
     rng = np.random.default_rng(seed)
     X = rng.uniform(0, 5, size=(n, 2))
     y = np.sin(X[:, 0]) + 0.3 * X[:, 1]
-    return build_problem(X, y, RBF(amplitude=1.0, lengthscale=1.3), noise_variance=0.2, X_test=rng.uniform(0, 5, size=(n_test, 2)))
+    return build_problem(X, y, RBF(signal_variance=1.0, lengthscale=1.3), noise_variance=0.2, X_test=rng.uniform(0, 5, size=(n_test, 2)))
 
 
 CIRCUITS = [

@@ -36,7 +36,7 @@ target = "ice_cm"
 [kernel]
 family = "rbf"
 lengthscale = 45.0
-amplitude = 16.0
+signal_variance = 16.0
 {kernel}
 
 [noise]

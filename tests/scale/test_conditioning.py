@@ -36,10 +36,10 @@ X3 = RNG.uniform(0.0, 10.0, size=(600, 3))
 # Sparse matrices whose spectra differ where Lanczos finds them hard: a bottom cluster far tighter
 # than 1e-6 (1-D, dense data: λmin(K)/σ² ~ 1e-15), and λmin(K) comparable to σ² (2-D, 3-D).
 LANCZOS_CASES = {
-    "tapered-rbf-1d": (Tapered(RBF(amplitude=16.0, lengthscale=45.0), 120.0), X1, 2.25),
-    "wendland-1d": (Wendland(amplitude=16.0, lengthscale=6.0), X1, 2.25),
-    "wendland-2d": (Wendland(amplitude=1.0, lengthscale=1.5), X2, 1e-3),
-    "tapered-matern-3d": (Tapered(Matern32(amplitude=1.0, lengthscale=2.0), 3.0), X3, 1e-2),
+    "tapered-rbf-1d": (Tapered(RBF(signal_variance=16.0, lengthscale=45.0), 120.0), X1, 2.25),
+    "wendland-1d": (Wendland(signal_variance=16.0, lengthscale=6.0), X1, 2.25),
+    "wendland-2d": (Wendland(signal_variance=1.0, lengthscale=1.5), X2, 1e-3),
+    "tapered-matern-3d": (Tapered(Matern32(signal_variance=1.0, lengthscale=2.0), 3.0), X3, 1e-2),
 }
 
 
@@ -119,7 +119,7 @@ def _qiskit_lcu_alpha(padded: np.ndarray) -> float:
 
 @pytest.mark.parametrize(
     "kernel",
-    [RBF(amplitude=16.0, lengthscale=45.0), Tapered(RBF(amplitude=16.0, lengthscale=45.0), 60.0)],
+    [RBF(signal_variance=16.0, lengthscale=45.0), Tapered(RBF(signal_variance=16.0, lengthscale=45.0), 60.0)],
     ids=["rbf", "tapered"],
 )
 def test_dense_row_matches_numpy_and_qiskit(kernel):
@@ -130,7 +130,7 @@ def test_dense_row_matches_numpy_and_qiskit(kernel):
     X, noise = X1[:100], 2.25  # n = 100 pads to 128
     row = audit_size(X, np.zeros(100), kernel, noise)
     A = _dense_A(kernel, X, noise)
-    padded = pad_matrix(A, padding_diagonal(kernel.amplitude, noise))
+    padded = pad_matrix(A, padding_diagonal(kernel.signal_variance, noise))
     eig = np.linalg.eigvalsh(A)
     s = int(np.max(np.count_nonzero(A, axis=1))) if kernel.support_radius is not None else 100
     assert row.condition_method == "dense"
@@ -154,7 +154,7 @@ def test_dense_row_matches_numpy_and_qiskit(kernel):
 def test_a_kernel_without_support_has_sparsity_n_even_where_exp_underflows():
     # Reference: numpy's count of the dense matrix, which does see the underflowed zeros.
     X = np.linspace(0.0, 4000.0, 200)[:, None]
-    kernel = RBF(amplitude=1.0, lengthscale=1.0)
+    kernel = RBF(signal_variance=1.0, lengthscale=1.0)
     stored = int(np.count_nonzero(_dense_A(kernel, X, 0.1)))
     assert stored < 200 * 200, "precondition: exp must underflow somewhere"
     row = audit_size(X, np.zeros(200), kernel, 0.1)
@@ -171,7 +171,7 @@ def test_lanczos_row_matches_the_dense_reference(name):
     row = audit_size(X, np.zeros(600), kernel, noise, target_condition=30.0, exact_limit=256, lcu_limit=128)
     A = _dense_A(kernel, X, noise)
     eig = np.linalg.eigvalsh(A)
-    padded = pad_matrix(A, padding_diagonal(kernel.amplitude, noise))
+    padded = pad_matrix(A, padding_diagonal(kernel.signal_variance, noise))
     assert row.condition_method == "lanczos"
     assert row.sparsity == int(np.max(np.count_nonzero(A, axis=1)))
     assert row.nonzeros == int(np.count_nonzero(A))
@@ -193,7 +193,7 @@ def test_lanczos_row_matches_the_dense_reference(name):
 
 def test_noise_for_the_target_gives_the_target_condition_number():
     # Reference: numpy.linalg.cond(K + σ²I, 2) at the σ² the row reports (dense path).
-    X, kernel = X1[:300], RBF(amplitude=16.0, lengthscale=45.0)
+    X, kernel = X1[:300], RBF(signal_variance=16.0, lengthscale=45.0)
     for target in (20.0, 400.0):
         row = audit_size(X, np.zeros(300), kernel, 2.25, target_condition=target)
         kappa = np.linalg.cond(kernel(X) + row.noise_variance_for_target * np.eye(300), 2)
@@ -201,7 +201,7 @@ def test_noise_for_the_target_gives_the_target_condition_number():
 
 
 def test_a_target_the_kernel_already_beats_gives_none_and_a_note():
-    X, kernel = X1[:200], Wendland(amplitude=1.0, lengthscale=1e-9)  # no pair within the support: K = I, κ(K) = 1
+    X, kernel = X1[:200], Wendland(signal_variance=1.0, lengthscale=1e-9)  # no pair within the support: K = I, κ(K) = 1
     Xh, yh = X1[200:220], np.ones(20)
     row = audit_size(X, np.ones(200), kernel, 0.5, target_condition=50.0, X_holdout=Xh, y_holdout=yh)
     assert row.noise_variance_for_target is None and row.holdout_rmse_at_target is None
@@ -213,7 +213,7 @@ def _sklearn_scores(kernel, X, y, Xh, yh, noise):
     from sklearn.gaussian_process import GaussianProcessRegressor
     from sklearn.gaussian_process import kernels as skk
 
-    sk_kernel = skk.ConstantKernel(kernel.amplitude, "fixed") * skk.RBF(kernel.lengthscale, "fixed")
+    sk_kernel = skk.ConstantKernel(kernel.signal_variance, "fixed") * skk.RBF(kernel.lengthscale, "fixed")
     gp = GaussianProcessRegressor(sk_kernel, alpha=noise, optimizer=None, normalize_y=False)
     offset = y.mean()  # center=True: the prior mean is the training mean
     mean, std = gp.fit(X, y - offset).predict(Xh, return_std=True)
@@ -224,7 +224,7 @@ def _sklearn_scores(kernel, X, y, Xh, yh, noise):
 def test_held_out_scores_match_scikit_learn():
     # Reference: scikit-learn's GaussianProcessRegressor with the same fixed kernel and alpha = σ²,
     # at the fixed σ² and at the target's σ².
-    kernel = RBF(amplitude=16.0, lengthscale=45.0)
+    kernel = RBF(signal_variance=16.0, lengthscale=45.0)
     X = X1[:250]
     y = 3.0 * np.sin(X[:, 0] / 40.0) + 0.3 * RNG.standard_normal(250)
     Xh = np.linspace(5.0, 395.0, 31)[:, None]
@@ -262,7 +262,7 @@ def test_held_out_scores_on_the_sparse_path_match_dense_numpy():
 
 def test_a_dense_kernel_beyond_the_exact_limit_is_skipped_not_invented():
     # Reference: the dense matrix numpy builds here (the row itself never builds it).
-    X, kernel = X1[:300], Matern32(amplitude=2.0, lengthscale=30.0)
+    X, kernel = X1[:300], Matern32(signal_variance=2.0, lengthscale=30.0)
     row = audit_size(X, np.zeros(300), kernel, 0.5, target_condition=10.0, X_holdout=X1[300:310],
                      y_holdout=np.zeros(10), exact_limit=256)
     A = _dense_A(kernel, X, 0.5)
@@ -328,7 +328,7 @@ def test_nested_sizes():
 
 def test_the_audit_reports_each_size_against_numpy():
     # Reference: numpy.linalg.cond on the matrix of each nested subset, built here.
-    kernel, noise = RBF(amplitude=16.0, lengthscale=45.0), 2.25
+    kernel, noise = RBF(signal_variance=16.0, lengthscale=45.0), 2.25
     order = subset_order(700, order="permutation", seed=11)
     said: list[str] = []
     rows = conditioning_audit(X1, np.zeros(700), kernel, noise, sizes=(64, 128, 256), order_index=order, say=said.append)
@@ -341,7 +341,7 @@ def test_the_audit_reports_each_size_against_numpy():
 
 def test_rows_are_plain_json_and_csv():
     # Reference: the standard library's json (allow_nan=False) and csv round trips.
-    row = audit_size(X1[:100], np.zeros(100), RBF(amplitude=1.0, lengthscale=40.0), 0.1, target_condition=20.0)
+    row = audit_size(X1[:100], np.zeros(100), RBF(signal_variance=1.0, lengthscale=40.0), 0.1, target_condition=20.0)
     d = row.as_dict()
     assert tuple(d) == CONDITIONING_COLUMNS
     assert all(v is None or type(v) in (int, float, str) for v in d.values()), {k: type(v) for k, v in d.items()}
@@ -359,7 +359,7 @@ def test_rows_are_plain_json_and_csv():
 
 
 def test_bad_input_is_refused_with_the_fix():
-    kernel = RBF(amplitude=1.0, lengthscale=1.0)
+    kernel = RBF(signal_variance=1.0, lengthscale=1.0)
     X = X1[:100]
     cases = [
         (lambda: nested_sizes(50), "fewer than n_min = 64; lower n_min"),
@@ -387,7 +387,7 @@ def test_lanczos_beyond_the_exact_limit_matches_lapack():
     # (1–2 min): the default path, Lanczos, at a size just past the dense one.
     n = EXACT_LIMIT + 808
     X = np.random.default_rng(9).uniform(0.0, 400.0, size=(n, 1))
-    kernel, noise = Wendland(amplitude=16.0, lengthscale=3.0), 2.25
+    kernel, noise = Wendland(signal_variance=16.0, lengthscale=3.0), 2.25
     row = audit_size(X, np.zeros(n), kernel, noise)
     eig = np.linalg.eigvalsh(_dense_A(kernel, X, noise))
     assert row.condition_method == "lanczos"

@@ -16,7 +16,7 @@ n_train = 8
 
 [base.kernel]
 lengthscale = 45.0
-amplitude = 16.0
+signal_variance = 16.0
 
 [base.noise]
 target_condition = 10.0

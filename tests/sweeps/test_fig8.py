@@ -24,7 +24,7 @@ TARGET = 0.01
 
 _BASE = {
     "data": {"train": str(DEMO / "ice_train.csv"), "test": str(DEMO / "ice_test.csv"), "target": "ice_cm", "n_train": 4},
-    "kernel": {"lengthscale": 45.0, "amplitude": 16.0},
+    "kernel": {"lengthscale": 45.0, "signal_variance": 16.0},
     "noise": {"target_condition": 2.0},  # the exact oracle reaches 1% at c = 4, QSVT not at 0.03
     "circuit": {"clock_qubits": 3, "evolution": "exact"},
     "readout": {"seed": 1},

@@ -36,7 +36,7 @@ RATES = [0.0, 1e-5, 1e-4, 1e-3]
 
 _BASE = {
     "data": {"train": str(DEMO / "ice_train.csv"), "target": "ice_cm", "n_train": 4},
-    "kernel": {"lengthscale": 45.0, "amplitude": 16.0},
+    "kernel": {"lengthscale": 45.0, "signal_variance": 16.0},
     "noise": {"target_condition": 2.0},
     "circuit": {"clock_qubits": 3, "evolution": "exact"},
     "readout": {"seed": 1},

@@ -35,7 +35,7 @@ DEMO = Path(qgp.demo.__file__).resolve().parent
 
 _BASE = {
     "data": {"train": str(DEMO / "ice_train.csv"), "test": str(DEMO / "ice_test.csv"), "target": "ice_cm", "n_train": 4},
-    "kernel": {"lengthscale": 45.0, "amplitude": 16.0},
+    "kernel": {"lengthscale": 45.0, "signal_variance": 16.0},
     "noise": {"variance": 2.0},
     "circuit": {"clock_qubits": 3, "evolution": "walk"},
     "readout": {"seed": 1},

@@ -50,7 +50,7 @@ n_train = 6
 [base.kernel]
 family = "rbf"
 lengthscale = 45.0
-amplitude = 16.0
+signal_variance = 16.0
 
 [base.noise]
 target_condition = 10.0
@@ -173,7 +173,7 @@ def test_grid_holds_every_combination_exactly_once(lengths, paired):
     axes = {k: list(range(1, n + 1)) for k, n in zip(keys, lengths)}
     raw = {"base": _inline_base(), "axes": axes}
     if paired:
-        raw["paired"] = {"circuit.clock_qubits": list(range(3, 3 + paired)), "kernel.amplitude": [1.0 + i for i in range(paired)]}
+        raw["paired"] = {"circuit.clock_qubits": list(range(3, 3 + paired)), "kernel.signal_variance": [1.0 + i for i in range(paired)]}
     if not axes and not paired:
         with pytest.raises(QgpError, match="no axes"):
             parse_sweep(raw, base_dir=demo_config_path().parent)
@@ -184,7 +184,7 @@ def test_grid_holds_every_combination_exactly_once(lengths, paired):
     got = [tuple(p.axes[k] for k in keys) + ((p.axes["circuit.clock_qubits"] - 3,) if paired else ()) for p in sweep.points]
     assert got == expected
     if paired:
-        assert all(p.axes["kernel.amplitude"] == p.axes["circuit.clock_qubits"] - 2.0 for p in sweep.points)
+        assert all(p.axes["kernel.signal_variance"] == p.axes["circuit.clock_qubits"] - 2.0 for p in sweep.points)
 
 
 def _inline_base() -> dict:

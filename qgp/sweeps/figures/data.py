@@ -296,10 +296,12 @@ def _setting(points, skip: Iterable[str] = ()) -> str:
     if "c" not in skip and same(SUMMARY["clock_qubits"]) is not None:
         parts.append(f"c = {same(SUMMARY['clock_qubits'])} clock qubits")
     if "kernel" not in skip:
-        fam, ls, amp = (same(f"config:kernel.{k}") for k in ("family", "lengthscale", "amplitude"))
-        if fam is not None and ls is not None and amp is not None:
+        fam, ls = (same(f"config:kernel.{k}") for k in ("family", "lengthscale"))
+        # Stores written before the rename hold the signal variance under its old key, "amplitude".
+        s2 = same("config:kernel.signal_variance") or same("config:kernel.amplitude")
+        if fam is not None and ls is not None and s2 is not None:
             sup = same("config:kernel.support")
-            parts.append(f"{fam} kernel, lengthscale {_fmt(ls)}, amplitude {_fmt(amp)}" + (f", taper radius {_fmt(sup)}" if sup else ""))
+            parts.append(f"{fam} kernel, lengthscale {_fmt(ls)}, signal variance {_fmt(s2)}" + (f", taper radius {_fmt(sup)}" if sup else ""))
     if "noise" not in skip:
         tc, var = same("config:noise.target_condition"), same("config:noise.variance")
         if tc is not None:
