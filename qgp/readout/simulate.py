@@ -31,6 +31,7 @@ from qiskit import QuantumCircuit
 from qiskit.circuit import Gate
 
 from qgp.errors import QgpError
+from qgp.progress import Bar
 from qgp.memory import (  # re-exported: the memory arithmetic moved to qgp.memory
     _status_bytes,  # noqa: F401  (tests read it from here)
     available_memory_bytes,
@@ -306,6 +307,7 @@ def run_statevectors(
     sim = simulator()
     out: list = []
     _log("aer")
+    meter = Bar(len(circuits), "simulating", unit="circuit")
     for group in groups:
         t0 = time.perf_counter()
         compiled = [_with_final_save(c) for c in prepare_for_simulator([circuits[i] for i in group], sim)]
@@ -317,9 +319,11 @@ def run_statevectors(
             sv = np.asarray(result.get_statevector(i))
             out.append(sv if reduce is None else reduce(index, sv))
         del result, sv
+        meter.update(len(group))
         if timings is not None:
             timings["transpile"] = timings.get("transpile", 0.0) + (t1 - t0)
             timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t1)
+    meter.close()
     return out
 
 
@@ -405,11 +409,13 @@ def _numpy_statevectors(circuits, cap: int, timings: dict | None, reduce, projec
     out = []
     t0 = time.perf_counter()
     workers = _threads()
-    for i, c in enumerate(circuits):
-        if reduce is None:
-            out.append(simulate(c, workers=workers)["final"])
-        else:
-            out.append(simulate(c, workers=workers, reduce=lambda sv, i=i: reduce(i, sv), project=project)["final"])
+    with Bar(len(circuits), "simulating", unit="circuit") as meter:
+        for i, c in enumerate(circuits):
+            if reduce is None:
+                out.append(simulate(c, workers=workers)["final"])
+            else:
+                out.append(simulate(c, workers=workers, reduce=lambda sv, i=i: reduce(i, sv), project=project)["final"])
+            meter.update(1)
     if timings is not None:
         timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t0)
     return out

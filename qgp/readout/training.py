@@ -31,6 +31,7 @@ from qgp.classical.gp import ml2_search_space
 from qgp.classical.kernels import Kernel
 from qgp.classical.problem import build_problem
 from qgp.errors import QgpError
+from qgp.progress import Bar
 from qgp.readout.likelihood import LikelihoodEstimate, estimate_log_marginal_likelihood
 from qgp.settings import CircuitSettings, ReadoutSettings
 
@@ -137,8 +138,7 @@ def fit_ml2_circuit(
 
     def negative(theta: np.ndarray) -> float:
         calls[0] += 1
-        if calls[0] % 20 == 0:
-            say(f"ML-II on the {objective} LML: {calls[0]} evaluations")
+        meter.update(1)
         try:
             problem = problem_at(theta)
             kb = problem.diagnostics.condition_number_bound
@@ -151,16 +151,21 @@ def fit_ml2_circuit(
         return -v if math.isfinite(v) else _INFEASIBLE * 10.0
 
     best = None
-    for x0 in starts:
-        result = scipy.optimize.minimize(
-            negative,
-            x0,
-            method="Nelder-Mead",
-            bounds=list(map(tuple, bounds)),
-            options={"maxfev": max_evaluations, "initial_simplex": _simplex(x0, bounds), "xatol": 1e-3, "fatol": 1e-4},
-        )
-        if result.fun < _INFEASIBLE and (best is None or result.fun < best.fun):
-            best = result
+    # The bar counts each start's evaluation budget; a start that converges early skips the rest of it.
+    with Bar(len(starts) * max_evaluations, f"ML-II ({objective})", unit="evaluation") as meter:
+        for i, x0 in enumerate(starts):
+            say(f"ML-II on the {objective} LML: start {i + 1} of {len(starts)}")
+            before = meter.n
+            result = scipy.optimize.minimize(
+                negative,
+                x0,
+                method="Nelder-Mead",
+                bounds=list(map(tuple, bounds)),
+                options={"maxfev": max_evaluations, "initial_simplex": _simplex(x0, bounds), "xatol": 1e-3, "fatol": 1e-4},
+            )
+            meter.update(max(0, max_evaluations - (meter.n - before)))
+            if result.fun < _INFEASIBLE and (best is None or result.fun < best.fun):
+                best = result
     if best is None:
         raise QgpError(
             f"the ML-II search on the {objective} LML found no hyperparameters inside the limits"

@@ -48,6 +48,7 @@ from qgp.classical.kernels import Kernel, _as_inputs
 from qgp.classical.levers import noise_for_condition
 from qgp.classical.system import pad_matrix, padded_size, padding_diagonal
 from qgp.errors import QgpError
+from qgp.progress import Bar
 
 __all__ = [
     "Order",
@@ -748,6 +749,7 @@ def conditioning_audit(
     if prefix.min() < 0 or prefix.max() >= X.shape[0] or np.unique(prefix).size != largest:
         raise QgpError(f"order_index must hold distinct row indices in [0, {X.shape[0]}); use subset_order(...)")
     rows = []
+    meter = Bar(len(sizes), "conditioning audit", unit="size")
     for n in sizes:
         keep = np.sort(order_index[:n])
         row = audit_size(
@@ -763,8 +765,10 @@ def conditioning_audit(
             lcu_limit=lcu_limit,
         )
         rows.append(row)
+        meter.update(1, n=n)
         if say is not None:
             say(_progress_line(row))
+    meter.close()
     return tuple(rows)
 
 

@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import os
 import signal
-import sys
 import threading
 import time
 from dataclasses import dataclass
@@ -19,6 +18,7 @@ from pathlib import Path
 from typing import Any, Callable, Literal, Mapping
 
 from qgp.errors import QgpError
+from qgp.progress import LOGGER, Bar, write
 from qgp.sweeps.grid import Sweep, _changed_data_files, _data_paths, _data_snapshot, _hash_or_missing
 from qgp.sweeps.lock import lock_store
 from qgp.sweeps.store import bind_store, check_store_path, utc_now
@@ -54,53 +54,31 @@ class SweepReport:
 
 
 class _Progress:
-    """A one-line progress bar on stderr: points done, failed, total and ETA."""
+    """The sweep's progress: a bar of points (`qgp.progress.Bar`: tqdm where it can be drawn) and
+    messages on the ``"qgp"`` logger; ``always`` messages (something to act on) reach stderr regardless."""
 
-    def __init__(self, total: int, enabled: bool, stream=None):
-        self.total = total
-        self.enabled = enabled and total > 0
-        self.stream = stream or sys.stderr
-        self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
+    def __init__(self, total: int, enabled: bool):
+        self.enabled = enabled
+        self._bar = Bar(total, "sweep", unit="point") if enabled else None
         self.done = self.failed = 0
-        self.t0 = time.monotonic()
-        self._last = 0.0
 
     def say(self, msg: str, *, always: bool = False) -> None:
-        """A message line; ``always`` prints it even without a progress bar (something to act on)."""
-        if not (self.enabled or always):
-            return
-        drawn = self.enabled and self.tty and 0 < self.done + self.failed < self.total
-        print(("\r\033[K" if drawn else "") + f"qgp: {msg}", file=self.stream, flush=True)
-        if drawn:
-            self._draw()
+        if always:
+            write(f"qgp: {msg}")
+        elif self.enabled:
+            LOGGER.info(msg)
 
     def update(self, status: str) -> None:
         if status == "done":
             self.done += 1
         else:
             self.failed += 1
-        self._draw(final=self.done + self.failed == self.total)
+        if self._bar is not None:
+            self._bar.update(1, failed=self.failed)
 
-    def _line(self) -> str:
-        n = self.done + self.failed
-        elapsed = time.monotonic() - self.t0
-        width = 24
-        fill = int(width * n / self.total) if self.total else width
-        eta = "—" if n == 0 else _duration(elapsed / n * (self.total - n))
-        return (
-            f"[{'#' * fill}{'.' * (width - fill)}] {n}/{self.total} points: {self.done} done, "
-            f"{self.failed} failed, elapsed {_duration(elapsed)}, ETA {eta}"
-        )
-
-    def _draw(self, final: bool = False) -> None:
-        if not self.enabled:
-            return
-        now = time.monotonic()
-        if self.tty:
-            print("\r\033[K" + self._line(), end="\n" if final else "", file=self.stream, flush=True)
-        elif final or now - self._last >= 10.0:  # a log file gets a line now and then, not a stream of them
-            print(self._line(), file=self.stream, flush=True)
-            self._last = now
+    def close(self) -> None:
+        if self._bar is not None:
+            self._bar.close()
 
 
 def _duration(seconds: float) -> str:
@@ -216,6 +194,7 @@ def run_sweep(
                     )
                     raise
                 finally:
+                    bar.close()
                     _restore_sigterm(previous)
                 st = store.status()
         finally:

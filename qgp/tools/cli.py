@@ -14,6 +14,7 @@ from pathlib import Path
 
 from qgp import __version__
 from qgp.errors import QgpError
+from qgp.progress import show_bars, write
 
 __all__ = ["main", "build_parser"]
 
@@ -433,18 +434,22 @@ def _cmd_bench(args) -> int:
 
 
 class _StderrHandler(logging.Handler):
-    """Progress on whatever sys.stderr is at the time of each message (so captured streams see it)."""
+    """Progress on whatever sys.stderr is at the time of each message (so captured streams see it),
+    written past any progress bar being drawn."""
 
     def emit(self, record: logging.LogRecord) -> None:
-        print(f"qgp: {record.getMessage()}", file=sys.stderr, flush=True)
+        write(f"qgp: {record.getMessage()}")
 
 
 def _logging(args):
-    """Attach the ``"qgp"`` logger's stderr handler for one command (INFO; nothing with --quiet; DEBUG
-    with -v); returns the function that restores the logger, so library calls after it stay silent."""
+    """Attach the ``"qgp"`` logger's stderr handler and switch progress bars on for one command (INFO;
+    neither with --quiet; DEBUG with -v); returns the function that restores both, so library calls
+    after it stay silent."""
     logger = logging.getLogger("qgp")
     saved = (logger.level, logger.propagate)
-    handler = None if getattr(args, "quiet", False) else _StderrHandler()
+    quiet = getattr(args, "quiet", False)
+    handler = None if quiet else _StderrHandler()
+    bars_before = show_bars(not quiet)
     if handler is not None:
         logger.addHandler(handler)
         logger.setLevel(logging.DEBUG if getattr(args, "verbose", 0) else logging.INFO)
@@ -455,6 +460,7 @@ def _logging(args):
             logger.removeHandler(handler)
         logger.setLevel(saved[0])
         logger.propagate = saved[1]
+        show_bars(bars_before)
 
     return restore
 
