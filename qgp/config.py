@@ -7,7 +7,6 @@ or row, and says how to fix it; nothing heavy runs before validation has passed.
 from __future__ import annotations
 
 import csv
-import difflib
 import gzip
 import math
 import tomllib
@@ -18,7 +17,7 @@ from typing import Any
 
 import numpy as np
 
-from qgp.errors import QgpError
+from qgp.errors import QgpError, did_you_mean
 from qgp.settings import (
     MAX_ABS_VALUE,
     MAX_SHOTS,
@@ -85,12 +84,6 @@ _SECTIONS: dict[str, tuple[str, ...]] = {
 }
 
 
-def _did_you_mean(name: str, valid) -> str:
-    """" (did you mean 'x'?)" for the closest valid name (difflib's ratio ≥ 0.6), else ""."""
-    close = difflib.get_close_matches(str(name), list(valid), n=1)
-    return f" (did you mean '{close[0]}'?)" if close else ""
-
-
 def load_config(path: str | Path) -> Config:
     """Read and validate a TOML config file; CSV paths are relative to the file."""
     path = Path(path)
@@ -109,7 +102,7 @@ def parse_config(raw: dict[str, Any], *, base_dir: Path, source: Path | None = N
     for section in raw:
         if section not in _SECTIONS:
             raise QgpError(
-                f"{where}: unknown section [{section}]{_did_you_mean(section, _SECTIONS)}; valid sections are "
+                f"{where}: unknown section [{section}]{did_you_mean(section, _SECTIONS)}; valid sections are "
                 + ", ".join(f"[{s}]" for s in _SECTIONS)
             )
         if not isinstance(raw[section], dict):
@@ -117,7 +110,7 @@ def parse_config(raw: dict[str, Any], *, base_dir: Path, source: Path | None = N
         for key in raw[section]:
             if key not in _SECTIONS[section]:
                 raise QgpError(
-                    f"{where}: unknown key '{key}' in [{section}]{_did_you_mean(key, _SECTIONS[section])}; valid keys are "
+                    f"{where}: unknown key '{key}' in [{section}]{did_you_mean(key, _SECTIONS[section])}; valid keys are "
                     + ", ".join(_SECTIONS[section])
                 )
     if "data" not in raw:
@@ -534,7 +527,7 @@ def load_dataset(spec: DataSpec) -> Dataset:
     for column, _ in spec.labels:
         if column not in (*inputs, spec.target):
             raise QgpError(
-                f"[data] labels names column '{column}'{_did_you_mean(column, (*inputs, spec.target))}, which "
+                f"[data] labels names column '{column}'{did_you_mean(column, (*inputs, spec.target))}, which "
                 f"{spec.train} does not have; columns are {', '.join((*inputs, spec.target))}"
             )
     if X.shape[0] < 2:

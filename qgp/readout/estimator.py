@@ -28,7 +28,7 @@ import numpy as np
 from qgp.classical.kernels import RBF
 from qgp.classical.problem import build_problem, validate_arrays
 from qgp.classical.sklearn_kernel import as_kernel
-from qgp.errors import QgpError
+from qgp.errors import QgpError, did_you_mean
 from qgp.readout.inference import infer
 from qgp.settings import CircuitSettings, Encoding, Engine, Evolution, Method, ReadoutSettings, Strategy, choices
 
@@ -171,16 +171,33 @@ class QuantumGPRegressor(_Mixin, _Base):
         self.circuit_, self.readout_ = self._settings()
         self.kernel_ = as_kernel(RBF(signal_variance=1.0, lengthscale=1.0) if self.kernel is None else self.kernel)
         self.feature_names_in_ = _columns(X)
+        # A pandas Series keeps its name as the target's (tables, figure labels); else "y".
+        name = getattr(y, "name", None)
+        self.target_name_ = str(name) if name is not None and str(name) else "y"
         X_, y_, _, _ = validate_arrays(np.asarray(X, dtype=float), np.asarray(y, dtype=float).ravel())
         self.n_features_in_ = X_.shape[1]
+        self._check_labels(X_.shape[1])
         problem = build_problem(
             X_, y_, self.kernel_, noise_variance=self.noise_variance, target_condition=self.target_condition,
-            X_test=X_[:1], center=self.center, inputs=self.feature_names_in_ or (), labels=self.labels or (),
+            X_test=X_[:1], center=self.center, **self._names(),
         )
         self.X_train_, self.y_train_ = X_, y_
         self.noise_variance_ = problem.noise_variance
         self.condition_number_ = problem.diagnostics.condition_number
         return self
+
+    def _names(self) -> dict:
+        return {"inputs": self.feature_names_in_ or (), "target": self.target_name_, "labels": self.labels or ()}
+
+    def _check_labels(self, n_inputs: int) -> None:
+        """Every ``labels`` key must name an input column or the target: a typo is an error, not ignored."""
+        columns = (*(self.feature_names_in_ or [f"x{i}" for i in range(n_inputs)]), self.target_name_)
+        for column in dict(self.labels or {}):
+            if column not in columns:
+                raise QgpError(
+                    f"labels names column {column!r}{did_you_mean(column, columns)}, which is not an input column or "
+                    f"the target ({', '.join(map(repr, columns))}); key each label by one of those"
+                )
 
     def _problem(self, X):
         if not hasattr(self, "X_train_"):
@@ -196,7 +213,7 @@ class QuantumGPRegressor(_Mixin, _Base):
             raise QgpError(f"X has {Xs.shape[1]} feature(s) but the model was fitted on {self.n_features_in_}")
         return build_problem(
             self.X_train_, self.y_train_, self.kernel_, noise_variance=self.noise_variance_, X_test=Xs,
-            center=self.center, inputs=self.feature_names_in_ or (), labels=self.labels or (),
+            center=self.center, **self._names(),
         )
 
     def predict(self, X, return_std: bool = False):

@@ -26,7 +26,6 @@ store) are the snapshot every point uses, so a file edited during a sweep is nev
 from __future__ import annotations
 
 import copy
-import difflib
 import hashlib
 import itertools
 import json
@@ -37,7 +36,7 @@ from typing import Any, Mapping
 
 from qgp.config import _SECTIONS as _CONFIG_KEYS  # the config's key list is the one source of valid keys
 from qgp.config import parse_config
-from qgp.errors import QgpError
+from qgp.errors import QgpError, did_you_mean
 from qgp.sweeps.store import GridEntry, canonical_json, json_hash
 
 __all__ = ["GridPoint", "Sweep", "valid_keys", "load_sweep", "parse_sweep"]
@@ -210,10 +209,8 @@ def _axis_table(table: Any, name: str, where: str, sweep_dir: Path) -> dict[str,
     out: dict[str, list[Any]] = {}
     for key, vals in flat.items():
         if key not in valid:
-            close = difflib.get_close_matches(key, valid, n=1)
-            hint = f" (did you mean '{close[0]}'?)" if close else ""
             raise QgpError(
-                f"{where}: unknown key '{key}' in [{name}]{hint}; keys are \"section.key\", valid ones: "
+                f"{where}: unknown key '{key}' in [{name}]{did_you_mean(key, valid)}; keys are \"section.key\", valid ones: "
                 + ", ".join(valid)
             )
         if not isinstance(vals, list):

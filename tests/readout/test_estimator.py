@@ -91,3 +91,17 @@ def test_nonpositive_variance_is_nan_with_a_warning_not_clipped():
         out = _std(np.array([4.0, -1e-9, 0.0]), "the circuits'")
     assert out[0] == 2.0 and np.isnan(out[1]) and np.isnan(out[2])
     assert any("2 point(s)" in str(w.message) for w in caught)
+
+
+def test_a_named_target_keeps_its_name_and_label_keys_are_checked():
+    X, y = _data(8)
+    y = y.rename("progression")
+    labels = {"bmi": "body-mass index (×10)", "progression": "disease progression (z)"}
+    gp = qgp.QuantumGPRegressor(kernel=ConstantKernel(1.0) * SkRBF(1.0), noise_variance=0.2, clock_qubits=4,
+                                labels=labels).fit(X, y)
+    gp.predict(X.iloc[:2])
+    problem = gp.last_result_.problem
+    assert problem.target == "progression" and problem.label("progression") == "disease progression (z)"
+    with pytest.raises(QgpError, match=r"labels names column 'progresion' \(did you mean 'progression'\?\)"):
+        qgp.QuantumGPRegressor(kernel=SkRBF(1.0), noise_variance=0.2, labels={"progresion": "z"}).fit(X, y)
+    assert qgp.QuantumGPRegressor(kernel=SkRBF(1.0), noise_variance=0.2).fit(X.to_numpy(), y.to_numpy()).target_name_ == "y"
