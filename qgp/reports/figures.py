@@ -20,6 +20,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
 from qgp.circuits.algorithms import algorithm_of
+from qgp.errors import QgpError  # noqa: E402
 from qgp.files import atomic_open  # noqa: E402
 from qgp.readout.filter_model import filter_response  # noqa: E402
 from qgp.readout.inference import InferenceResult  # noqa: E402
@@ -66,8 +67,12 @@ def save_figure(fig, stem: Path) -> list[Path]:
     return paths
 
 
-def draw_prediction(result: InferenceResult):
+def draw_prediction(result: InferenceResult, y_test=None):
     """The prediction figure as a matplotlib Figure (restyle it, or save it with `save_figure`).
+
+    ``y_test`` (shape (m,)): held-out targets at the test points, drawn when given; default the problem's
+    own (a config's test file with a target column). The estimator's ``predict`` never sees targets, so
+    pass them here.
 
     1-D inputs: the exact GP's mean with its latent ±2σ band (of f) and its predictive ±2σ band (of y,
     latent + σ², which the training data are drawn from) on a dense grid of its own; the circuits' mean
@@ -77,6 +82,9 @@ def draw_prediction(result: InferenceResult):
     """
     p = result.problem
     one_d = p.X.shape[1] == 1
+    targets = p.y_test if y_test is None else np.asarray(y_test, dtype=float).ravel()
+    if targets is not None and targets.shape != (p.n_test,):
+        raise QgpError(f"y_test has {targets.size} values but the result has {p.n_test} test points; pass one per test point")
     se = result.mean_quantum_se
     resid = result.mean_quantum - result.mean_exact
     with figure_style():
@@ -103,8 +111,8 @@ def draw_prediction(result: InferenceResult):
             else:
                 ax.plot(x, result.mean_quantum, "o", ms=2, color=PALETTE[1], label="quantum mean")
             ax.plot(p.X[:, 0], p.y, "k.", ms=4, label="training data")
-            if p.y_test is not None:
-                ax.plot(x, p.y_test, "x", color=PALETTE[7], ms=3, mew=0.6, label="held-out targets")
+            if targets is not None:
+                ax.plot(x, targets, "x", color=PALETTE[7], ms=3, mew=0.6, label="held-out targets")
             neg = result.variance_quantum <= 0
             if np.any(neg):
                 ax.plot(x[neg], result.mean_quantum[neg], "s", mfc="none", color=PALETTE[3], ms=5,

@@ -74,3 +74,20 @@ def test_importing_the_figures_keeps_a_backend_chosen_before():
     out = [subprocess.run([sys.executable, "-c", c], capture_output=True, text=True, check=True).stdout.strip()
            for c in (chosen, bare)]
     assert out == ["svg", "agg"] or out == ["svg", "Agg"], out
+
+
+def test_held_out_targets_can_be_passed_and_must_match_the_test_points():
+    # The estimator's predict never sees targets: draw_prediction takes them (one per test point).
+    x = np.linspace(0, 5, 8)
+    problem = build_problem(x, np.sin(x), RBF(1.0, 1.0), noise_variance=0.1, X_test=np.array([0.5, 2.5, 4.5]))
+    result = infer(problem, CircuitSettings(clock_qubits=4), progress=None)
+    fig = draw_prediction(result, y_test=[0.4, 0.6, -0.9])
+    held = [ln for ln in fig.axes[0].get_lines() if ln.get_label() == "held-out targets"]
+    assert len(held) == 1 and list(held[0].get_ydata()) == [0.4, 0.6, -0.9]
+    plt.close(fig)
+    import pytest
+
+    from qgp.errors import QgpError
+
+    with pytest.raises(QgpError, match="y_test has 2 values but the result has 3 test points"):
+        draw_prediction(result, y_test=[1.0, 2.0])
