@@ -7,6 +7,7 @@ from __future__ import annotations
 from contextlib import contextmanager
 from pathlib import Path
 
+import os
 import sys
 
 import matplotlib
@@ -25,30 +26,45 @@ from qgp.files import atomic_open  # noqa: E402
 from qgp.readout.filter_model import filter_response  # noqa: E402
 from qgp.readout.inference import InferenceResult  # noqa: E402
 
-__all__ = ["PALETTE", "figure_style", "save_figure", "draw_prediction", "prediction_figure", "filter_figure", "run_figures"]
+__all__ = ["PALETTE", "STYLE_FILE", "figure_style", "use_style", "styles", "save_figure", "draw_prediction", "prediction_figure", "filter_figure", "run_figures"]
 
 #: Okabe–Ito colour-blind-safe palette.
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000")
 SINGLE_COLUMN = (3.4, 2.5)
 _GREY = "#555555"
 
-_STYLE = {
-    "font.size": 8,
-    "axes.labelsize": 8,
-    "axes.titlesize": 8,
-    "legend.fontsize": 7,
-    "xtick.labelsize": 7,
-    "ytick.labelsize": 7,
-    "lines.linewidth": 1.2,
-    "axes.prop_cycle": matplotlib.cycler(color=PALETTE),
-    "savefig.bbox": "tight",
-    "pdf.fonttype": 42,
-}
+#: The style every figure starts from, a matplotlib style sheet shipped with qgp; the user's sheets go on top.
+STYLE_FILE = Path(__file__).with_name("qgp.mplstyle")
+#: Environment variable naming style sheets (paths or matplotlib style names, separated by os.pathsep).
+STYLE_VARIABLE = "QGP_MPLSTYLE"
+_user_styles: tuple[str, ...] = ()
+
+
+def _checked_style(style: str) -> str:
+    if Path(style).is_file() or style in plt.style.available:
+        return style
+    raise QgpError(
+        f"style sheet {style!r} is neither a file nor a matplotlib style name; give the path of an .mplstyle "
+        "file or one of plt.style.available"
+    )
+
+
+def use_style(*styles: str) -> None:
+    """Draw every figure with these style sheets (paths or matplotlib style names) on top of qgp's own;
+    no argument goes back to qgp's style alone. Checked here, before any figure is drawn."""
+    global _user_styles
+    _user_styles = tuple(_checked_style(str(s)) for s in styles)
+
+
+def styles() -> list[str]:
+    """The style sheets a figure is drawn with, in order: qgp's, then ``QGP_MPLSTYLE``'s, then `use_style`'s."""
+    from_env = [s for s in os.environ.get(STYLE_VARIABLE, "").split(os.pathsep) if s]
+    return [str(STYLE_FILE), *(_checked_style(s) for s in from_env), *_user_styles]
 
 
 @contextmanager
 def figure_style():
-    with plt.rc_context(_STYLE):
+    with plt.style.context(styles()):
         yield
 
 

@@ -53,6 +53,10 @@ def build_parser() -> argparse.ArgumentParser:
     parser.add_argument("--version", action="version", version=f"qgp {__version__}")
     parser.add_argument("--debug", action="store_true", help="show a traceback on errors")
     parser.add_argument("-v", "--verbose", action="count", default=0, help="more progress detail (the qgp logger at DEBUG)")
+    parser.add_argument(
+        "--style", action="append", default=[], metavar="MPLSTYLE",
+        help="a matplotlib style sheet (file or style name) drawn on top of qgp's figure style; repeatable",
+    )
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
     p = sub.add_parser(
@@ -473,6 +477,10 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     restore = _logging(args)
     try:
+        if args.style:
+            from qgp.reports.figures import use_style
+
+            use_style(*args.style)
         return int(args.handler(args) or 0)
     except QgpError as exc:
         if args.debug:
@@ -484,6 +492,10 @@ def main(argv: list[str] | None = None) -> int:
         return 130
     finally:
         restore()
+        if args.style:  # the command's own: library calls after it draw in qgp's style again
+            from qgp.reports.figures import use_style
+
+            use_style()
 
 
 if __name__ == "__main__":

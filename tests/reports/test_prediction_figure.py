@@ -91,3 +91,46 @@ def test_held_out_targets_can_be_passed_and_must_match_the_test_points():
 
     with pytest.raises(QgpError, match="y_test has 2 values but the result has 3 test points"):
         draw_prediction(result, y_test=[1.0, 2.0])
+
+
+def test_a_user_style_sheet_goes_on_top_of_qgps_own(tmp_path, monkeypatch):
+    import pytest
+
+    import matplotlib as mpl
+
+    from qgp.errors import QgpError
+    from qgp.reports.figures import STYLE_FILE, figure_style, use_style
+    from qgp.tools.cli import main
+
+    mine = tmp_path / "mine.mplstyle"
+    mine.write_text("font.size: 13\nlines.linewidth: 2.5\n")
+    with figure_style():
+        ours = (mpl.rcParams["font.size"], mpl.rcParams["lines.linewidth"], mpl.rcParams["pdf.fonttype"])
+    assert ours == (8.0, 1.2, 42)  # qgp's sheet (qgp/reports/qgp.mplstyle)
+    assert STYLE_FILE.is_file()
+    use_style(str(mine))
+    try:
+        with figure_style():
+            assert (mpl.rcParams["font.size"], mpl.rcParams["lines.linewidth"], mpl.rcParams["pdf.fonttype"]) == (13.0, 2.5, 42)
+    finally:
+        use_style()
+    monkeypatch.setenv("QGP_MPLSTYLE", str(mine))
+    with figure_style():
+        assert mpl.rcParams["font.size"] == 13.0
+    monkeypatch.delenv("QGP_MPLSTYLE")
+    with pytest.raises(QgpError, match="neither a file nor a matplotlib style name"):
+        use_style(str(tmp_path / "missing.mplstyle"))
+    # The command: --style reaches the figures it draws, and is dropped after it.
+    seen = []
+    import qgp.reports.figures as figures
+
+    real = figures.figure_style
+
+    def spy():
+        seen.append(figures.styles())
+        return real()
+
+    monkeypatch.setattr(figures, "figure_style", spy)
+    assert main(["--style", str(mine), "run", "--demo", "--out", str(tmp_path / "run"), "--quiet"]) == 0
+    assert seen and all(s[-1] == str(mine) for s in seen)
+    assert figures.styles() == [str(STYLE_FILE)]
