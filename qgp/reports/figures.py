@@ -8,6 +8,7 @@ from contextlib import contextmanager
 from pathlib import Path
 
 import os
+import re
 import sys
 
 import matplotlib
@@ -26,7 +27,7 @@ from qgp.files import atomic_open  # noqa: E402
 from qgp.readout.filter_model import filter_response  # noqa: E402
 from qgp.readout.inference import InferenceResult  # noqa: E402
 
-__all__ = ["PALETTE", "STYLE_FILE", "figure_style", "use_style", "styles", "save_figure", "draw_prediction", "prediction_figure", "filter_figure", "run_figures"]
+__all__ = ["PALETTE", "STYLE_FILE", "figure_style", "use_style", "styles", "math_label", "mathify", "save_figure", "draw_prediction", "prediction_figure", "filter_figure", "run_figures"]
 
 #: Okabe–Ito colour-blind-safe palette.
 PALETTE = ("#0072B2", "#D55E00", "#009E73", "#CC79A7", "#E69F00", "#56B4E9", "#F0E442", "#000000")
@@ -68,9 +69,66 @@ def figure_style():
         yield
 
 
+#: Plain-text formulas the library writes in labels (logs, file headers) and their mathtext for figures,
+#: longest first so that "κ_b" is not read as "κ" followed by "_b".
+_MATH = (
+    ("e^(iAt)", r"e^{iAt}"),
+    ("e^{iAt}", r"e^{iAt}"),
+    ("‖A‖_F", r"\|A\|_F"),
+    ("‖A‖_max", r"\|A\|_{max}"),
+    ("‖A‖", r"\|A\|"),
+    ("1/κ²", r"1/\kappa^2"),
+    ("λ_lo", r"\lambda_{lo}"),
+    ("λ_hi", r"\lambda_{hi}"),
+    ("κ_b", r"\kappa_b"),
+    ("1/λ̃", r"1/\tilde\lambda"),
+    ("λ̃", r"\tilde\lambda"),
+    ("p(λ/α)", r"p(\lambda/\alpha)"),
+    ("1/λ", r"1/\lambda"),
+    ("σ²", r"\sigma^2"),
+    ("s²", r"s^2"),
+    ("κ", r"\kappa"),
+    ("λ", r"\lambda"),
+    ("α", r"\alpha"),
+    ("ε", r"\epsilon"),
+    ("ℓ", r"\ell"),
+)
+#: A power law's exponent as the fits print it: "n^0.92" → $n^{0.92}$.
+_POWER = re.compile(r"\b([nκ])\^([0-9]+(?:\.[0-9]+)?)")
+_MATH_PATTERN = re.compile("|".join(re.escape(plain) for plain, _ in _MATH))
+
+
+def math_label(text: str) -> str:
+    """``text`` with its formulas in mathtext (κ → $\\kappa$, σ² → $\\sigma^2$, e^(iAt) → $e^{iAt}$, …);
+    parts already between $ signs are left as they are."""
+    table = dict(_MATH)
+    parts = str(text).split("$")
+    for i in range(0, len(parts), 2):  # even parts lie outside $…$
+        part = _POWER.sub(lambda m: "${}^{{{}}}$".format(m.group(1).replace("κ", r"\kappa"), m.group(2)), parts[i])
+        pieces = part.split("$")  # the powers just made are math already: convert only between them
+        for j in range(0, len(pieces), 2):
+            pieces[j] = _MATH_PATTERN.sub(lambda m: f"${table[m.group(0)]}$", pieces[j])
+        parts[i] = "$".join(pieces)
+    return "$".join(parts)
+
+
+def mathify(fig):
+    """Every title, axis label, legend entry and free text of ``fig`` through `math_label`; returns ``fig``."""
+    texts = [t for leg in fig.legends for t in leg.get_texts()] + list(fig.texts)
+    for ax in fig.axes:
+        texts += [ax.title, ax._left_title, ax._right_title, ax.xaxis.label, ax.yaxis.label, *ax.texts]
+        if ax.get_legend() is not None:
+            texts += ax.get_legend().get_texts()
+    for t in texts:
+        t.set_text(math_label(t.get_text()))
+    return fig
+
+
 def save_figure(fig, stem: Path) -> list[Path]:
-    """Write ``stem``.pdf (vector) and ``stem``.png (300 dpi), each atomically; close the figure."""
+    """Write ``stem``.pdf (vector) and ``stem``.png (300 dpi), each atomically, formulas in mathtext
+    (`mathify`); close the figure."""
     stem.parent.mkdir(parents=True, exist_ok=True)
+    mathify(fig)
     paths = [stem.with_suffix(".pdf"), stem.with_suffix(".png")]
     try:
         for path, dpi in zip(paths, ("figure", 300)):
@@ -144,7 +202,8 @@ def draw_prediction(result: InferenceResult, y_test=None):
             rx, rlabel = np.arange(p.n_test), "test point"
         rax.axhline(0.0, color=_GREY, lw=0.8)
         rax.errorbar(rx, resid, yerr=None if se is None else 2 * se, fmt="o", ms=2, color=PALETTE[1], elinewidth=0.6)
-        rax.set(xlabel=rlabel, ylabel="quantum − exact\nmean")
+        unit = re.search(r"\(([^()]*)\)\s*$", p.label(p.target))  # "ice thickness (cm)" → cm
+        rax.set(xlabel=rlabel, ylabel="quantum − exact\nmean" + (f" ({unit.group(1)})" if unit else ""))
         label = algorithm_of(result.circuit).label(result.circuit)
         size = f"c = {result.circuit.clock_qubits}" if algorithm_of(result.circuit).uses_clock else f"degree {result.inverse.n_oracle_calls}"
         kappa = p.diagnostics.condition_number
@@ -152,7 +211,7 @@ def draw_prediction(result: InferenceResult, y_test=None):
         handles, labels = ax.get_legend_handles_labels()
         fig.tight_layout()
         fig.legend(handles, labels, loc="upper center", bbox_to_anchor=(0.5, 0.0), ncol=2, frameon=False, fontsize=6)
-        return fig
+        return mathify(fig)
 
 
 def prediction_figure(result: InferenceResult, stem: Path) -> list[Path]:
@@ -182,8 +241,8 @@ def filter_figure(result: InferenceResult, stem: Path) -> list[Path]:
         ax.axvline(inv.floor, color=PALETTE[2], lw=0.7, ls=":", label=algorithm.floor_label)
         ax.set_xscale("log")
         ax.set_yscale("log")
-        ax.set_xlabel("eigenvalue λ of A")
-        ax.set_ylabel("applied 1/λ̃")
+        ax.set_xlabel(r"eigenvalue $\lambda$ of $A$")
+        ax.set_ylabel(r"applied $1/\tilde\lambda$")
         ax.legend(frameon=False)
         return save_figure(fig, stem)
 

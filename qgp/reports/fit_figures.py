@@ -11,7 +11,7 @@ from pathlib import Path
 
 import matplotlib.pyplot as plt
 import numpy as np
-from matplotlib.ticker import NullFormatter
+from matplotlib.ticker import FuncFormatter, LogLocator, NullFormatter
 
 from qgp.reports.figures import PALETTE, figure_style, save_figure
 
@@ -66,6 +66,20 @@ def lml_error_figure(rows, doc: dict, stem: Path) -> list[Path]:
         return save_figure(fig, stem)
 
 
+def _readable_log(ax, which: str = "y", linear_below: float | None = 10.0) -> None:
+    """At least two labelled ticks on a log axis: one spanning less than ``linear_below`` becomes linear,
+    one spanning under three decades is labelled at 1, 2, 5 × 10^k."""
+    axis = ax.yaxis if which == "y" else ax.xaxis
+    lo, hi = ax.get_ylim() if which == "y" else ax.get_xlim()
+    if linear_below is not None and hi / lo < linear_below:
+        (ax.set_yscale if which == "y" else ax.set_xscale)("linear")
+        return
+    if hi / lo < 1000.0:
+        axis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
+        axis.set_major_formatter(FuncFormatter(lambda v, _: f"{v:g}"))
+    axis.set_minor_formatter(NullFormatter())
+
+
 def hyperparameter_figure(rows, doc: dict, stem: Path) -> list[Path]:
     """The circuit ML-II optimum at each size against the exact optima (with and without the κ limit)."""
     size = _column(rows, "size")
@@ -77,19 +91,20 @@ def hyperparameter_figure(rows, doc: dict, stem: Path) -> list[Path]:
             for ref, style, text in ((control, "--", rf"exact, $\kappa_b \leq$ {doc['optimum']['max_condition']:.3g}"), (exact, ":", "exact, no limit")):
                 v = ref[name][0] if isinstance(ref[name], list) else ref[name]
                 ax.axhline(v, color=_GREY, ls=style, lw=0.9, label=text)
-            ax.set(yscale="log", xlabel=_SIZE_LABEL.get(doc.get("size_name"), "circuit size"), title=_PARAM_LABEL[name])
-            ax.yaxis.set_minor_formatter(NullFormatter())
+            ax.set(yscale="log", title=_PARAM_LABEL[name])
+            _readable_log(ax, "y")
             ax.set_xticks(size)
         ax = axes[3]
         ax.plot(size, _column(rows, "optimum_test_nlpd"), "o-", ms=3.5, color=PALETTE[0], label="circuit ML-II")
         for ref, style, text in ((control, "--", "exact, κ limit"), (exact, ":", "exact, no limit")):
             if ref.get("test_nlpd") is not None:
                 ax.axhline(ref["test_nlpd"], color=_GREY, ls=style, lw=0.9, label=text)
-        ax.set(xlabel=_SIZE_LABEL.get(doc.get("size_name"), "circuit size"), title="test NLPD (exact GP at the optimum)")
+        ax.set(title="test NLPD (exact GP at the optimum)")
         ax.set_xticks(size)
         handles, labels = axes[0].get_legend_handles_labels()
+        fig.supxlabel(_SIZE_LABEL.get(doc.get("size_name"), "circuit size"), fontsize=8, y=0.1)
         fig.legend(handles, labels, loc="lower center", ncol=3, frameon=False, fontsize=7)
-        fig.tight_layout(rect=(0, 0.1, 1, 1))
+        fig.tight_layout(rect=(0, 0.12, 1, 1))
         return save_figure(fig, stem)
 
 
@@ -115,7 +130,7 @@ def surface_figure(rows, doc: dict, stem: Path) -> list[Path]:
             v = control[name][0] if isinstance(control[name], list) else control[name]
             ax.axvline(v, color=PALETTE[0], ls="--", lw=0.8)
             ax.set(xscale="log", xlabel=_PARAM_LABEL[name], ylabel="log marginal likelihood" if name == "lengthscale" else None)
-            ax.xaxis.set_minor_formatter(NullFormatter())
+            _readable_log(ax, "x", linear_below=None)  # the slices are log grids: keep the axis log
         axes[0].legend(frameon=False, fontsize=6, title=r"shaded: $\kappa_b$ above the limit", title_fontsize=6)
         circ = doc["log_marginal_likelihood"]["circuit"]
         size = ", ".join(f"{k.replace('_', ' ')} {v}" for k, v in circ.items() if k in ("clock_qubits", "degree"))

@@ -134,3 +134,29 @@ def test_a_user_style_sheet_goes_on_top_of_qgps_own(tmp_path, monkeypatch):
     assert main(["--style", str(mine), "run", "--demo", "--out", str(tmp_path / "run"), "--quiet"]) == 0
     assert seen and all(s[-1] == str(mine) for s in seen)
     assert figures.styles() == [str(STYLE_FILE)]
+
+
+def test_formulas_reach_the_figures_as_mathtext():
+    # Common practice (matplotlib's mathtext guide): formulas between $ signs, so κ, σ², e^{iAt} are typeset.
+    from hypothesis import given
+    from hypothesis import strategies as st
+
+    from qgp.reports.figures import math_label, mathify
+
+    assert math_label("exact e^(iAt), σ² for κ = 20") == r"exact $e^{iAt}$, $\sigma^2$ for $\kappa$ = 20"
+    assert math_label(r"κ_b ≤ 22, already $\kappa$") == r"$\kappa_b$ ≤ 22, already $\kappa$"
+
+    @given(st.lists(st.sampled_from(["κ", "σ²", "λ̃", "e^(iAt)", "κ_b", " ", "= 3", "x", "$y$"]), max_size=8))
+    def idempotent(parts):
+        once = math_label("".join(parts))
+        assert math_label(once) == once and once.count("$") % 2 == "".join(parts).count("$") % 2
+
+    idempotent()
+    fig, ax = plt.subplots()
+    ax.plot([0, 1], [0, 1], label="σ² = 0.5")
+    ax.legend()
+    ax.set(title="walk, κ = 20", xlabel="eigenvalue λ", ylabel="1/λ̃")
+    mathify(fig)
+    texts = [ax.get_title(), ax.get_xlabel(), ax.get_ylabel(), ax.get_legend().get_texts()[0].get_text()]
+    assert texts == [r"walk, $\kappa$ = 20", r"eigenvalue $\lambda$", r"$1/\tilde\lambda$", r"$\sigma^2$ = 0.5"]
+    plt.close(fig)
