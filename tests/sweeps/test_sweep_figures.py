@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 import sqlite3
 import struct
 import zlib
@@ -179,8 +180,12 @@ def test_every_csv_equals_the_stored_numbers_it_claims_to_plot(drawn):
                     others = {json.dumps({k: v for k, v in p["axes"].items() if k not in _SEED_KEYS}, sort_keys=True) for p in pts}
                     assert len(others) == 1
                 elif src == "reference":
-                    power = 2 if "kappa^2" in r["y_name"] else 1
-                    if "kappa" in r["y_name"] and "this n" not in r["y_name"]:
+                    anchored = re.fullmatch(r"reference:P0\*\(kappa0/kappa\)\^(\d) with kappa0 = (\S+), P0 = (\S+) \(.*\)", r["y_name"])
+                    if anchored:  # fig. 3: the 1/κ^power scaling through (κ0, P0), the lowest point at the smallest κ
+                        power, k0, p0 = int(anchored[1]), float(anchored[2]), float(anchored[3])
+                        assert r["y"] == p0 * (k0 / r["x"]) ** power
+                    elif "kappa" in r["y_name"] and "this n" not in r["y_name"]:
+                        power = 2 if "kappa^2" in r["y_name"] else 1
                         assert r["y"] == 1.0 / r["x"] ** power
                     elif r["y_name"].startswith("reference:n_train"):
                         assert r["y"] == float(r["y_name"].split("=")[1])

@@ -3,16 +3,22 @@
 Nine figures, each drawn only if the store holds the data it needs (otherwise skipped with a
 note, never drawn empty):
 
-1. ``fig1_error_vs_qubits``   error of the mean and of the variance against total and clock qubits,
-                              one line per oracle;
+1. ``fig1_error_vs_qubits``   error of the mean and of the variance against clock qubits, one line
+                              per oracle (total qubits = c + a constant per oracle, stated in the legend;
+                              their rows stay in the CSV, not drawn); where κ varies, its series along a
+                              sequential colour ramp, the oracle by marker and line style;
 2. ``fig2_error_vs_condition`` the same errors against the condition number κ (a noise axis);
 3. ``fig3_success_probability`` post-selection success probability against κ: the inversion circuit
-                              beside 1/κ², the variance circuit beside 1/κ (Harrow, Hassidim & Lloyd,
-                              PRL 103, 150502 (2009): the 1/λ amplitude C/λ is at least about 1/κ);
-4. ``fig4_noise_tradeoff``    κ, the quantum error, and the exact GP's test RMSE and NLPD against
-                              σ²: raising σ² helps the circuit and hurts the model;
+                              beside a line ∝ 1/κ², the variance circuit beside one ∝ 1/κ (Harrow, Hassidim
+                              & Lloyd, PRL 103, 150502 (2009): the 1/λ amplitude C/λ is at least about
+                              1/κ), each anchored at the lowest measured point at the smallest κ;
+4. ``fig4_noise_tradeoff``    a Pareto view of the noise trade-off: the quantum error against the exact
+                              GP's test NLPD, one point per σ² (labelled), per method and clock size, the
+                              non-dominated points marked; raising σ² helps the circuit and hurts the
+                              model. κ, errors, test RMSE and NLPD against σ² stay in the CSV, not drawn;
 5. ``fig5_taper_sparsity``    sparsity s, κ and GP accuracy against the taper radius ``kernel.support``;
-6. ``fig6_circuit_cost``      CX count and depth of the 1/λ circuit against system and clock qubits;
+6. ``fig6_circuit_cost``      CX count and depth of the 1/λ circuit against system qubits m and clock
+                              qubits c, with m, c and † (synthesis-dependent counts) defined on the figure;
 7. ``fig7_scaling``           κ, s and ‖A‖_F/‖A‖ against n at fixed hyperparameters, and the clock
                               qubits and success probability a 1% error needs — simulated where the
                               store has runs, the closed-form filter model (qgp.readout.filter_model) beyond,
@@ -31,7 +37,8 @@ note, never drawn empty):
                               error per run), unfitted.
 
 Contract: every figure is drawn from the rows of the CSV written beside it and from nothing
-else, so the CSV holds exactly the plotted numbers. Columns (`CSV_COLUMNS`):
+else, so the CSV holds the plotted numbers (and, for figs. 1 and 4, the rows of panels they no
+longer draw, marked so in the caption: nothing a reader used is lost). Columns (`CSV_COLUMNS`):
 
     panel, series, x_name, x, y_name, y, y_std, y_min, y_max, n, source, grid_indices
 

@@ -28,6 +28,16 @@ _CX = summary_ref("resources", "inverse", "gate_counts", "u_cx", "cx")
 _DEPTH = summary_ref("resources", "inverse", "gate_counts", "u_cx", "depth")
 _SKIPPED = summary_ref("resources", "inverse", "gate_level_skipped")
 _DEPENDENT = summary_ref("resources", "inverse", "synthesis_dependent")
+_CX_LABEL = "CX count (gates)"
+_DEPTH_LABEL = "depth (gate layers)"
+#: Drawn under the figure: every symbol its axes and legend use.
+FOOTNOTE = "\n".join((
+    r"$m$: system qubits, $m = \lceil\log_2 n\rceil$ for $n$ training points ($A$ padded to $2^m\times2^m$).",
+    r"$c$: clock qubits of phase estimation.",
+    r"†: synthesis-dependent count: a dense controlled unitary (the exact $e^{iAt}$ oracle, the dilation encoding) "
+    r"decomposed by qiskit's generic synthesis; it says how a generic matrix compiles, not what the algorithm needs.",
+    r"CX count and depth: after transpiling to the {u, cx} basis at optimisation level 0.",
+))
 
 
 def _most_common_slice(points, fixed: str, varied: str):
@@ -68,24 +78,26 @@ def _fig6(points) -> _Figure:
     if len(m_values) >= 2:
         c_ref = _most_common_slice(pts, SUMMARY["clock_qubits"], SUMMARY["system_qubits"])
         sl = [p for p in pts if point_value(p, SUMMARY["clock_qubits"]) == c_ref]
-        for key, y, lab in (("cx vs m", _CX, "CX count"), ("depth vs m", _DEPTH, "depth")):
+        for key, y, lab in (("cx vs m", _CX, _CX_LABEL), ("depth vs m", _DEPTH, _DEPTH_LABEL)):
             rows += _aggregate(sl, panel=key, x_name=SUMMARY["system_qubits"], y_name=y, series=series, extras=extras, dropped=dropped)
-            panels.append(_Panel(key, f"system qubits m (c = {c_ref})", lab, "linear", "log", integer_x=True, legend=key == "cx vs m"))
+            panels.append(_Panel(key, f"system qubits $m$ ($c$ = {c_ref})", lab, "linear", "log", integer_x=True, legend=key == "cx vs m"))
     if len(c_values) >= 2:
         m_ref = _most_common_slice(pts, SUMMARY["system_qubits"], SUMMARY["clock_qubits"])
         sl = [p for p in pts if point_value(p, SUMMARY["system_qubits"]) == m_ref]
-        for key, y, lab in (("cx vs c", _CX, "CX count"), ("depth vs c", _DEPTH, "depth")):
+        for key, y, lab in (("cx vs c", _CX, _CX_LABEL), ("depth vs c", _DEPTH, _DEPTH_LABEL)):
             rows += _aggregate(sl, panel=key, x_name=SUMMARY["clock_qubits"], y_name=y, series=series, extras=extras, dropped=dropped)
-            panels.append(_Panel(key, f"clock qubits c (m = {m_ref})", lab, "linear", "log", integer_x=True, legend=key == "cx vs c" and len(m_values) < 2))
+            panels.append(_Panel(key, f"clock qubits $c$ ($m$ = {m_ref})", lab, "linear", "log", integer_x=True,
+                                 legend=key == "cx vs c" and len(m_values) < 2))
     order = ["cx vs m", "cx vs c", "depth vs m", "depth vs c"]
     panels.sort(key=lambda p: order.index(p.key))
     grid = (2, 2) if len(panels) == 4 else (2, 1)
     caption = (
         "Circuit cost of the 1/λ inversion circuit (phase estimation, rotation, uncompute; the mean's circuit): "
         "CX count and depth after transpiling to the ['u', 'cx'] basis at optimisation level 0 (qgp.circuits.resources), against "
-        "system qubits and clock qubits, per phase oracle and block encoding. † marks synthesis-dependent counts "
-        "(dense controlled unitaries: the exact e^(iAt) oracle and the dilation encoding), which say how qiskit "
-        "decomposes a generic matrix, not what an algorithm needs."
+        "system qubits m and clock qubits c, per phase oracle and block encoding. Symbols (also defined on the figure): "
+        "m = ⌈log₂ n⌉ system qubits for n training points (A padded to 2^m × 2^m); c clock qubits of phase estimation; "
+        "† marks synthesis-dependent counts (dense controlled unitaries: the exact e^(iAt) oracle and the dilation "
+        "encoding), which say how qiskit decomposes a generic matrix, not what an algorithm needs; depth in gate layers."
     )
-    return _Figure("fig6_circuit_cost", rows, panels, grid, (SINGLE_COLUMN[0], 3.9), caption, notes + dropped, legend="figure",
-                   setting=_setting(pts, {"n", "c", "noise", "kernel"}))
+    return _Figure("fig6_circuit_cost", rows, panels, grid, (SINGLE_COLUMN[0], 3.5 if grid == (2, 2) else 3.3), caption,
+                   notes + dropped, legend="below", setting=_setting(pts, {"n", "c", "noise", "kernel"}), footnote=FOOTNOTE)
