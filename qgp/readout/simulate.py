@@ -132,6 +132,31 @@ def _threads() -> int:
     return _THREADS or cpu_count()
 
 
+def _engine_threads(qubits: int) -> int:
+    """Threads of a numpy-engine run (FFT workers and BLAS): one below `PARALLEL_THRESHOLD_QUBITS`,
+    where a pass takes ~1 ms and a second thread costs more than it gives (OpenBLAS's idle threads
+    spin and take the core the FFT's second worker needs: the 17-qubit reference run measured 7.0 ms
+    with two threads against 5.8 ms with one, idle machine); the cores (or the cap) from there on
+    (a 20-qubit inversion: 38 ms with two against 49 ms with one)."""
+    return _threads() if qubits >= PARALLEL_THRESHOLD_QUBITS else 1
+
+
+_BLAS = None
+
+
+@contextlib.contextmanager
+def blas_threads(n: int):
+    """BLAS limited to ``n`` threads inside (threadpoolctl; its controller is made once: ~12 µs a
+    use, against ~0.3 ms for a fresh `threadpool_limits`)."""
+    global _BLAS
+    if _BLAS is None:
+        from threadpoolctl import ThreadpoolController
+
+        _BLAS = ThreadpoolController()
+    with _BLAS.limit(limits=int(n), user_api="blas"):
+        yield
+
+
 def simulator():
     """A statevector AerSimulator with gate fusion on and its threads set to the cores (or the cap)."""
     return _simulator(_THREADS or cpu_count())
@@ -357,11 +382,13 @@ def run_saved_statevectors(
         )
         _log("numpy")
         t0 = time.perf_counter()
-        if project is None:
-            states = simulate(circuit, labels=labels, workers=_threads())
-        else:
-            states = simulate(circuit, labels=labels[:-1], workers=_threads(), reduce=np.copy, project=project)
-            states[labels[-1]] = states["final"]
+        workers = _engine_threads(n)
+        with blas_threads(workers):
+            if project is None:
+                states = simulate(circuit, labels=labels, workers=workers)
+            else:
+                states = simulate(circuit, labels=labels[:-1], workers=workers, reduce=np.copy, project=project)
+                states[labels[-1]] = states["final"]
         if timings is not None:
             timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t0)
         return [states[label] for label in labels]
@@ -408,8 +435,8 @@ def _numpy_statevectors(circuits, cap: int, timings: dict | None, reduce, projec
     _log("numpy")
     out = []
     t0 = time.perf_counter()
-    workers = _threads()
-    with Bar(len(circuits), "simulating", unit="circuit") as meter:
+    workers = _engine_threads(widest)
+    with Bar(len(circuits), "simulating", unit="circuit") as meter, blas_threads(workers):
         for i, c in enumerate(circuits):
             if reduce is None:
                 out.append(simulate(c, workers=workers)["final"])

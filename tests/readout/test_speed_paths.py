@@ -406,3 +406,16 @@ unitary q[0], q[1];
     assert not is_native(qc)
     worst = float(np.max(np.abs(run_statevector(qc) - Statevector(qc).data)))
     assert worst < TOL, f"worst residual {worst:.3g}"
+
+
+def test_small_engine_runs_use_one_thread_and_blas_is_limited_inside():
+    # Common practice (OpenBLAS's idle threads spin): below the parallel threshold a run gets one thread
+    # for its FFTs and its BLAS calls; above it, the cores. threadpoolctl reports the limit in force.
+    from threadpoolctl import threadpool_info
+
+    from qgp.readout.simulate import PARALLEL_THRESHOLD_QUBITS, _engine_threads, _threads, blas_threads
+
+    assert _engine_threads(PARALLEL_THRESHOLD_QUBITS - 1) == 1
+    assert _engine_threads(PARALLEL_THRESHOLD_QUBITS) == _threads()
+    with blas_threads(1):
+        assert all(lib["num_threads"] == 1 for lib in threadpool_info() if lib["user_api"] == "blas")
