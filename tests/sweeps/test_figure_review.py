@@ -25,7 +25,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 import qgp.demo
-from qgp.reports.figures import figure_style
+from qgp.reports.figures import figure_style, math_label
 from qgp.sweeps.figures import FIGURES, draw_figures, read_figure_csv
 from qgp.sweeps.figures.data import _labels, load_points
 from qgp.sweeps.figures.style import (
@@ -37,7 +37,6 @@ from qgp.sweeps.figures.style import (
     _render,
     pareto_front,
 )
-from qgp.reports.figures import math_label
 
 DEMO = Path(qgp.demo.__file__).resolve().parent
 
