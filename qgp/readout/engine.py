@@ -229,6 +229,17 @@ class _State:
             _blocks(view, stack, out.reshape(-1, K, T).transpose(1, 0, 2), identity)
             self.t = out
             return
+        if i is not None and self.order[k - len(tgroup) :] == tgroup and 1 < math.prod(self.t.shape[:i]) <= _LEADING_LOOP:
+            # Controls together, targets last, a few amplitudes' worth of axes above the controls (a
+            # flag): one (K, mid, T) product per leading value, the layout kept (no transpose).
+            shape = self.t.shape
+            a = math.prod(shape[:i])
+            view = self.t.reshape(a, K, -1, T)
+            out = self._scratch(view.shape)
+            for j in range(a):
+                _blocks(view[j], stack, out[j], identity)
+            self.t = out.reshape(shape)
+            return
         self._arrange(cgroup, tgroup)
         shape = self.t.shape
         view = self.t.reshape(K, -1, T)
@@ -254,6 +265,10 @@ class _State:
             np.multiply(view, columns[:, f][None, :, None], out=out[f])
         self.t = out.reshape((2, *shape))
         self.order.insert(0, target)
+        if self.t.size <= _CANONICAL_BELOW:
+            # Still small (a state preparation): put the axes in descending qubit order while a
+            # transpose costs nothing, so later layers and multiplexers find registers in order.
+            self._arrange(sorted(self.order, reverse=True), [])
 
     def drop(self) -> None:
         """Forget the state (after an error too): its work buffers go back to the pool."""
@@ -477,6 +492,12 @@ def simulate(
     if final_label is not None:
         out[final_label] = out["final"]
     return out
+
+
+#: States up to this many amplitudes are kept in descending qubit order after a conditioned expand.
+_CANONICAL_BELOW = 1 << 12
+#: A multiplexer whose controls sit below at most this many amplitudes' worth of axes loops over them.
+_LEADING_LOOP = 16
 
 
 def _blocks(view: np.ndarray, stack: np.ndarray, out: np.ndarray, identity) -> None:
