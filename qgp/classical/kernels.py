@@ -117,7 +117,7 @@ def _check_positive(value: float, what: str, key: str) -> float:
     return value
 
 
-#: The pre-0.2 name of ``signal_variance``: accepted for one release, with a FutureWarning.
+#: The old name of ``signal_variance``: accepted for one release, with a FutureWarning.
 _OLD_NAME = "amplitude"
 
 
