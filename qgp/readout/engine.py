@@ -91,6 +91,8 @@ class _State:
         self._current = -1
         #: A scalar factor not yet applied (diagonal gates on qubits still in |0⟩, global phase).
         self.factor = complex(1.0)
+        #: Projected qubits already cut to their read-out value (`fix`): no longer stored, not |0⟩.
+        self.fixed: dict[int, int] = {}
 
     def _scratch(self, shape) -> np.ndarray:
         """An array of ``shape`` in the buffer the state is not in (becomes the state's buffer)."""
@@ -270,6 +272,24 @@ class _State:
             # transpose costs nothing, so later layers and multiplexers find registers in order.
             self._arrange(sorted(self.order, reverse=True), [])
 
+    def fix(self, values: Mapping[int, int]) -> None:
+        """Keep only the amplitudes with each qubit q of ``values`` at ``values[q]`` (one read of the
+        state, one write of the part kept); those qubits are then no longer stored. Valid once no
+        later operation acts on them: the projection then commutes with the rest of the circuit."""
+        stored = {q: v for q, v in values.items() if q in self.order}
+        for q, v in values.items():
+            if q not in self.order:  # still |0⟩: the read-out keeps this part only if v = 0
+                self.factor *= 1.0 if v == 0 else 0.0
+            self.fixed[q] = v
+        if not stored:
+            return
+        index = tuple(stored.get(q, slice(None)) for q in self.order)
+        kept = self.t[index]
+        out = self._scratch(kept.shape)
+        np.copyto(out, kept)
+        self.t = out
+        self.order = [q for q in self.order if q not in stored]
+
     def drop(self) -> None:
         """Forget the state (after an error too): its work buffers go back to the pool."""
         _return_buffers(self.n, self._buffers)
@@ -336,6 +356,8 @@ class _State:
                 rows[q] = rows[q] @ u
         t, order, factor = self.t, list(self.order), self.factor
         for q, row in rows.items():
+            if q in self.fixed:  # cut to its read-out value already (`fix`)
+                continue
             if q not in order:  # still |0⟩: only row[0] survives
                 factor *= row[0]
         # Plain index picks first (views), then contractions, largest reduction first.
@@ -456,8 +478,9 @@ def simulate(
         while steps and steps[-1][0] == "layer" and set(steps[-1][1]) <= set(project):
             closing.insert(0, steps[-1][1])
             steps = steps[:-1]
+    cut = _cut_points(steps, project, closing, wanted) if project and reduce is not None else {}
     try:
-        for step in steps:
+        for i, step in enumerate(steps):
             kind = step[0]
             if kind == "mux":
                 state.multiplexer(step[1], step[2], step[3], step[4])
@@ -480,6 +503,8 @@ def simulate(
                     out[step[1]] = state.statevector()
             else:
                 state.matrix(step[1], step[2])
+            if i in cut:
+                state.fix(cut[i])
         state.factor *= program.phase
         for label in list(out):
             out[label] = out[label] * program.phase
@@ -498,6 +523,39 @@ def simulate(
 _CANONICAL_BELOW = 1 << 12
 #: A multiplexer whose controls sit below at most this many amplitudes' worth of axes loops over them.
 _LEADING_LOOP = 16
+
+
+def _step_qubits(step) -> list[int]:
+    """The qubits one compiled step acts on (a save: none)."""
+    kind = step[0]
+    if kind == "mux":
+        return [*step[2], *step[3]]
+    if kind == "layer":
+        return list(step[1])
+    if kind in ("fft", "diag", "matrix"):
+        return list(step[1] if kind == "fft" else step[2])
+    if kind in ("x", "cx", "swap"):
+        return list(step[1:])
+    return []
+
+
+def _cut_points(steps, project: Mapping[int, int], closing: list[dict], wanted: set) -> dict[int, dict[int, int]]:
+    """Step index → the projected qubits to cut to their read-out value after it: each at its last
+    step (and after the last state asked for), unless a closing layer, contracted at the end, acts
+    on it. Cutting the flag after the rotation halves everything after it."""
+    in_closing = {q for layer in closing for q in layer}
+    last_save = max((i for i, st in enumerate(steps) if st[0] == "save" and st[1] in wanted), default=-1)
+    last: dict[int, int] = {}
+    for i, st in enumerate(steps):
+        for q in _step_qubits(st):
+            if q in project:
+                last[q] = i
+    cut: dict[int, dict[int, int]] = {}
+    for q, i in last.items():
+        at = max(i, last_save)
+        if q not in in_closing and at < len(steps) - 1:  # after the last step the read-out picks it for free
+            cut.setdefault(at, {})[q] = project[q]
+    return cut
 
 
 def _blocks(view: np.ndarray, stack: np.ndarray, out: np.ndarray, identity) -> None:

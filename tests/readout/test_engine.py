@@ -252,3 +252,26 @@ def test_unsupported_instructions_fall_back_to_aer_or_are_refused():
     with pytest.raises(QgpError, match="engine must be one of"):
         with engine_scope("gpu"):
             pass
+
+
+def test_the_flag_is_cut_to_its_read_out_value_right_after_the_rotation():
+    # Nothing after the rotation acts on the flag and the read-out keeps flag = 1, so the engine keeps
+    # only that half from there on (the projection commutes with the rest: common practice, deferred
+    # measurement); the amplitudes are those of the uncut run and of Aer (law test above, and here).
+    from qgp.readout.engine import _cut_points
+    from qgp.readout.engine_program import compiled
+
+    A = _spd(8, 9)
+    lam = np.linalg.eigvalsh(A)
+    inv, _ = cached_pair(A, CircuitSettings(clock_qubits=4, evolution="exact"), (0.95 * lam[0], 1.05 * lam[-1]))
+    prep = with_preparation(inv, _unit(8, 4))
+    post = postselection(prep)
+    flag = prep.circuit.find_bit(prep.circuit.qregs[[r.name for r in prep.circuit.qregs].index("flag")][0]).index
+    steps = compiled(prep.circuit).steps
+    cut = _cut_points(steps, post, [], set())
+    where = [i for i, qs in cut.items() if flag in qs]
+    assert len(where) == 1 and cut[where[0]][flag] == post[flag] == 1
+    assert where[0] < len(steps) - 1 and all(flag not in engine._step_qubits(st) for st in steps[where[0] + 1 :])
+    [ref] = _aer([prep.circuit])
+    got = engine.simulate(prep.circuit, reduce=lambda amps: amps, project=post)["final"]
+    assert _worst(got, project_statevector(ref, post)) < TOL
