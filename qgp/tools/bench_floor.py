@@ -1,7 +1,7 @@
 """`qgp bench`: simulation time against its floor, a large problem end to end, the exact GP's time.
 
 The floor of a circuit is what any statevector simulation of its fused form must spend: for every
-stage that touches the whole state (the controlled powers, the inverse QFT, the rotation, the QFT,
+stage that touches the whole state (the half with the read-out's flag value: `_stages`) (the controlled powers, the inverse QFT, the rotation, the QFT,
 the inverse powers, the closing Hadamards, each saved state), the larger of its memory traffic (one
 read and one write of the state, at the copy bandwidth measured in this run for a state of that
 size) and its arithmetic (8·d flops per amplitude for a dense d × d block, 5·log₂C per amplitude
@@ -46,8 +46,12 @@ def machine_rates(state_bytes: int) -> dict:
 
 
 def _stages(qubits: int, system_qubits: int, clock_qubits: int, snapshot_saves: int) -> list[dict]:
-    """The whole-state stages of one inversion (see the module docstring)."""
-    amps = 2**qubits
+    """The whole-state stages of one inversion read out on its post-selected rows (see the module
+    docstring). Each is counted on 2^(qubits − 1) amplitudes: the flag is written only by the
+    rotation, and the read-out keeps flag = 1 with nothing after the rotation acting on the flag, so a
+    fused form never holds the other half (qgp's engine stores the flag only from the rotation on, and
+    cuts it to 1 right after: `qgp.readout.engine._cut_points`)."""
+    amps = 2 ** (qubits - 1)
     dim = 2**system_qubits
     out = []
     for name, flops in (
