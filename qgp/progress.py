@@ -18,7 +18,7 @@ import sys
 import time
 from collections.abc import Callable
 
-__all__ = ["LOGGER", "LOG_EVERY_SECONDS", "DELAY_SECONDS", "Bar", "bar", "bars_shown", "progress", "reporter", "show_bars", "write"]
+__all__ = ["LOGGER", "LOG_EVERY_SECONDS", "DELAY_SECONDS", "Bar", "bars_shown", "progress", "reporter", "show_bars", "write"]
 
 LOGGER = logging.getLogger("qgp")
 
@@ -108,8 +108,3 @@ class Bar:
 
     def __exit__(self, *exc) -> None:
         self.close()
-
-
-def bar(total: int, desc: str, unit: str = "step") -> Bar:
-    """A `Bar` of ``total`` steps labelled ``desc``."""
-    return Bar(total, desc, unit)

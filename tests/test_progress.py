@@ -40,12 +40,12 @@ def test_bars_are_off_by_default_and_drawn_by_tqdm_when_shown(capsys, monkeypatc
     assert not qprogress.bars_shown()
     monkeypatch.setattr(qprogress, "_drawable", lambda: True)
     monkeypatch.setattr(qprogress, "DELAY_SECONDS", 0.0)
-    with qprogress.bar(3, "work", unit="item") as b:
+    with qprogress.Bar(3, "work", unit="item") as b:
         b.update(3)
     assert capsys.readouterr().err == ""  # library default: nothing
     before = qprogress.show_bars(True)
     try:
-        with qprogress.bar(3, "work", unit="item") as b:
+        with qprogress.Bar(3, "work", unit="item") as b:
             b.update(2, failed=1)
             b.update(1)
     finally:
@@ -60,7 +60,7 @@ def test_a_bar_that_cannot_be_drawn_logs_lines_instead(caplog, monkeypatch):
     monkeypatch.setattr(qprogress, "LOG_EVERY_SECONDS", 0.0)
     before = qprogress.show_bars(True)
     try:
-        with caplog.at_level(logging.INFO, logger="qgp"), qprogress.bar(2, "sweep", unit="point") as b:
+        with caplog.at_level(logging.INFO, logger="qgp"), qprogress.Bar(2, "sweep", unit="point") as b:
             b.update(1, failed=0)
             b.update(1, failed=1)
     finally:

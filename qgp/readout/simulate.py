@@ -332,23 +332,22 @@ def run_statevectors(
     sim = simulator()
     out: list = []
     _log("aer")
-    meter = Bar(len(circuits), "simulating", unit="circuit")
-    for group in groups:
-        t0 = time.perf_counter()
-        compiled = [_with_final_save(c) for c in prepare_for_simulator([circuits[i] for i in group], sim)]
-        t1 = time.perf_counter()
-        result = sim.run(compiled).result()
-        if not result.success:
-            raise QgpError(f"the simulator failed: {result.status}")
-        for i, index in enumerate(group):
-            sv = np.asarray(result.get_statevector(i))
-            out.append(sv if reduce is None else reduce(index, sv))
-        del result, sv
-        meter.update(len(group))
-        if timings is not None:
-            timings["transpile"] = timings.get("transpile", 0.0) + (t1 - t0)
-            timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t1)
-    meter.close()
+    with Bar(len(circuits), "simulating", unit="circuit") as meter:
+        for group in groups:
+            t0 = time.perf_counter()
+            compiled = [_with_final_save(c) for c in prepare_for_simulator([circuits[i] for i in group], sim)]
+            t1 = time.perf_counter()
+            result = sim.run(compiled).result()
+            if not result.success:
+                raise QgpError(f"the simulator failed: {result.status}")
+            for i, index in enumerate(group):
+                sv = np.asarray(result.get_statevector(i))
+                out.append(sv if reduce is None else reduce(index, sv))
+            del result, sv
+            meter.update(len(group))
+            if timings is not None:
+                timings["transpile"] = timings.get("transpile", 0.0) + (t1 - t0)
+                timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t1)
     return out
 
 

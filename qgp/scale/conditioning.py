@@ -749,26 +749,25 @@ def conditioning_audit(
     if prefix.min() < 0 or prefix.max() >= X.shape[0] or np.unique(prefix).size != largest:
         raise QgpError(f"order_index must hold distinct row indices in [0, {X.shape[0]}); use subset_order(...)")
     rows = []
-    meter = Bar(len(sizes), "conditioning audit", unit="size")
-    for n in sizes:
-        keep = np.sort(order_index[:n])
-        row = audit_size(
-            X[keep],
-            y[keep],
-            kernel,
-            noise_variance,
-            target_condition=target_condition,
-            X_holdout=X_holdout,
-            y_holdout=y_holdout,
-            center=center,
-            exact_limit=exact_limit,
-            lcu_limit=lcu_limit,
-        )
-        rows.append(row)
-        meter.update(1, n=n)
-        if say is not None:
-            say(_progress_line(row))
-    meter.close()
+    with Bar(len(sizes), "conditioning audit", unit="size") as meter:
+        for n in sizes:
+            keep = np.sort(order_index[:n])
+            row = audit_size(
+                X[keep],
+                y[keep],
+                kernel,
+                noise_variance,
+                target_condition=target_condition,
+                X_holdout=X_holdout,
+                y_holdout=y_holdout,
+                center=center,
+                exact_limit=exact_limit,
+                lcu_limit=lcu_limit,
+            )
+            rows.append(row)
+            meter.update(1, n=n)
+            if say is not None:
+                say(_progress_line(row))
     return tuple(rows)
 
 

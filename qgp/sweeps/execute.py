@@ -60,7 +60,7 @@ class _Progress:
     def __init__(self, total: int, enabled: bool):
         self.enabled = enabled
         self._bar = Bar(total, "sweep", unit="point") if enabled else None
-        self.done = self.failed = 0
+        self.failed = 0
 
     def say(self, msg: str, *, always: bool = False) -> None:
         if always:
@@ -69,9 +69,7 @@ class _Progress:
             LOGGER.info(msg)
 
     def update(self, status: str) -> None:
-        if status == "done":
-            self.done += 1
-        else:
+        if status != "done":
             self.failed += 1
         if self._bar is not None:
             self._bar.update(1, failed=self.failed)
