@@ -211,12 +211,16 @@ class _State:
         view = self.t.reshape(view_shape)
         view *= dt.reshape(d_shape)
 
-    def multiplexer(self, stack: np.ndarray, targets: list[int], controls: list[int], identity=None) -> None:
+    def multiplexer(self, stack: np.ndarray, targets: list[int], controls: list[int], identity=None, keep=None) -> None:
         """Σ_k |k⟩⟨k|_controls ⊗ U_k (k little-endian over ``controls``); ``identity[k]`` marks
-        blocks that are the identity (copied, not multiplied: half the work of a controlled power)."""
+        blocks that are the identity (copied, not multiplied: half the work of a controlled power).
+        ``keep`` (0 or 1, a fresh single target only): the target is cut to that value at once
+        (`fix`), so only that half is ever written."""
         if len(targets) == 1 and targets[0] not in self.order:
-            self._conditioned_expand(stack[:, :, 0], targets[0], controls)
+            self._conditioned_expand(stack[:, :, 0], targets[0], controls, keep)
             return
+        if keep is not None:
+            raise ValueError("keep applies to a multiplexer on one fresh target")
         self._touch(targets + controls)
         K, T = stack.shape[0], stack.shape[1]
         cgroup, tgroup = list(reversed(controls)), list(reversed(targets))
@@ -249,9 +253,11 @@ class _State:
         _blocks(view, stack, out, identity)
         self.t = out.reshape(shape)
 
-    def _conditioned_expand(self, columns: np.ndarray, target: int, controls: list[int]) -> None:
+    def _conditioned_expand(self, columns: np.ndarray, target: int, controls: list[int], keep=None) -> None:
         """A fresh qubit set to Σ_f columns[k, f]|f⟩ for control value k: one write of the new state
-        (the new qubit most significant)."""
+        (the new qubit most significant); with ``keep`` = v, only its f = v half (the qubit then
+        fixed at v: the eigenvalue-conditioned rotation of a read-out on flag = 1 becomes one
+        diagonal pass)."""
         self._touch(controls)
         cgroup = list(reversed(controls))
         i = self._consecutive(cgroup)
@@ -262,6 +268,12 @@ class _State:
         hi = math.prod(shape[:i])
         K = columns.shape[0]
         view = self.t.reshape(hi, K, -1)
+        if keep is not None:
+            out = self._scratch(view.shape)
+            np.multiply(view, columns[:, keep][None, :, None], out=out)
+            self.t = out.reshape(shape)
+            self.fixed[target] = keep
+            return
         out = self._scratch((2, hi, K, view.shape[2]))
         for f in (0, 1):
             np.multiply(view, columns[:, f][None, :, None], out=out[f])
@@ -337,13 +349,28 @@ class _State:
         f = scipy.fft.fft if inverse_qft else scipy.fft.ifft
         self.t = f(view, axis=1, norm="ortho", workers=workers, overwrite_x=True).reshape(shape)
 
-    def statevector(self) -> np.ndarray:
-        """The full statevector, standard order (index bit q = qubit q)."""
-        out = np.zeros((2,) * self.n, dtype=complex)
-        stored = sorted(self.order, reverse=True)  # standard order: most significant qubit first
-        index = tuple(slice(None) if q in self.order else 0 for q in range(self.n - 1, -1, -1))
-        moved = self.t.transpose([self.order.index(q) for q in stored])
-        np.multiply(moved, self.factor, out=out[index])
+    def statevector(self, project: Mapping[int, int] | None = None, scale: complex = 1.0) -> np.ndarray:
+        """The statevector (a new array, the factor and ``scale`` applied), standard order (index
+        bit q = qubit q); with ``project``, only the amplitudes with each qubit q of it at
+        ``project[q]``, over the other qubits in the same order (`project_statevector`)."""
+        project = dict(project or {})
+        t, order, factor = self.t, list(self.order), self.factor * scale
+        for q, v in project.items():
+            if q in order:  # a view: the projected qubit's axis indexed away
+                ax = order.index(q)
+                t = t[(slice(None),) * ax + (v,)]
+                order.pop(ax)
+            elif v:  # a qubit still in |0⟩ projected on 1
+                factor = 0.0
+        want = [q for q in range(self.n - 1, -1, -1) if q not in project]  # most significant first
+        moved = t.transpose([order.index(q) for q in want if q in order])
+        if len(order) == len(want):  # every qubit stored: no zeros to write
+            out = np.empty(moved.shape, dtype=complex)
+            np.multiply(moved, factor, out=out)
+            return out.reshape(-1)
+        out = np.zeros((2,) * len(want), dtype=complex)
+        index = tuple(slice(None) if q in order else 0 for q in want)
+        np.multiply(moved, factor, out=out[index])
         return out.reshape(-1)
 
     def projected(self, project: Mapping[int, int], closing: list[dict]) -> np.ndarray:
@@ -431,6 +458,7 @@ def simulate(
     workers: int = 1,
     reduce: Callable[[np.ndarray], Any] | None = None,
     project: Mapping[int, int] | None = None,
+    saved_project: Mapping[int, int] | None = None,
 ) -> dict[str, Any]:
     """Run ``circuit`` from |0…0⟩.
 
@@ -452,6 +480,9 @@ def simulate(
         closing layer of one-qubit gates on projected qubits is contracted with the wanted rows
         instead of applied to the whole state (the same numbers, one read instead of several
         passes).
+    saved_project : mapping qubit → 0 or 1, optional
+        The states saved under ``labels`` hold only the amplitudes with these qubits at these
+        values (`project_statevector` order): no zeros written for a qubit still in |0⟩.
 
     Returns
     -------
@@ -483,7 +514,11 @@ def simulate(
         for i, step in enumerate(steps):
             kind = step[0]
             if kind == "mux":
-                state.multiplexer(step[1], step[2], step[3], step[4])
+                keep = None
+                if i in cut and len(step[2]) == 1 and step[2][0] in cut[i] and step[2][0] not in state.order:
+                    # A fresh target cut right after: write only the kept half (one pass, not three).
+                    keep = cut[i].pop(step[2][0])
+                state.multiplexer(step[1], step[2], step[3], step[4], keep)
             elif kind == "layer":
                 _apply_one_qubit_layer(state, step[1])
             elif kind == "fft":
@@ -500,14 +535,12 @@ def simulate(
                 if step[1] in wanted and step[2]:
                     final_label = step[1]  # the final state itself, below: no extra copy
                 elif step[1] in wanted:
-                    out[step[1]] = state.statevector()
+                    out[step[1]] = state.statevector(saved_project, program.phase)
             else:
                 state.matrix(step[1], step[2])
             if i in cut:
                 state.fix(cut[i])
         state.factor *= program.phase
-        for label in list(out):
-            out[label] = out[label] * program.phase
         if project and reduce is not None:
             out["final"] = reduce(state.projected(project, closing))
         else:

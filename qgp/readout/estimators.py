@@ -243,14 +243,19 @@ def operators_from_reference_run(
         require_memory(need, f"the reference-register run on {n} qubits (a saved state and the final one)", cap)
         # The final state is read only on flag = 1, clock = 0, block = 0: projected, it is B's
         # 2^m × 2^m amplitudes [reference r, system s] (never the whole final state).
+        # The flag is still 0 in the saved state: only its flag = 0 half, ψ, is copied out.
         sv_pre, post = run_saved_statevectors(
-            qc, [_PHASE_ESTIMATED, _FINAL], cap=cap, timings=timings, project=postselection(inverse)
+            qc,
+            [_PHASE_ESTIMATED, _FINAL],
+            cap=cap,
+            timings=timings,
+            project=postselection(inverse),
+            saved_project={m + c: 0},
         )
         n_in = 2**m
         B = (np.asarray(post).reshape(n_in, n_in) * np.sqrt(n_in)).T.copy()
-        # The flag is still 0 in the saved state: its flag = 0 slice is ψ.
         g = np.sin(rotation_angles(inverse_sqrt.flag_amplitudes) / 2)
-        M = _gram_of_slices(sv_pre, inverse, 0, g)
+        M = _gram_of_slices(sv_pre, inverse, None, g)
         del sv_pre
         runs = ({"what": ONE_RUN, "qubits": n, "runs": 1, "columns_per_run": 2**m},)
         return CircuitOperators(
@@ -279,21 +284,26 @@ SPLIT_RUN_B = "inversion with a split reference register: columns of B per run"
 SPLIT_GRAM_RUN = "uncomputed inverse_sqrt circuit with rotation g², split reference register: columns of M per run"
 
 
-def _gram_of_slices(sv: np.ndarray, inv: InversionCircuit, flag: int, g: np.ndarray | None) -> np.ndarray:
+def _gram_of_slices(sv: np.ndarray, inv: InversionCircuit, flag: int | None, g: np.ndarray | None) -> np.ndarray:
     """Σ over (block, clock) of conj(R)·Rᵀ, R[r, s] = √N·amplitude[r, block, flag, clock, s]·g_clock:
     M = E†E from a reference run, in chunks of whole (block, clock) slices (`_GRAM_CHUNK_BYTES`)
     so that no copy of half the statevector is made. When every slice fits in one chunk this is
-    the single product of the unchunked rows."""
-    view = _reference_view(sv, inv)
+    the single product of the unchunked rows. ``flag`` None: ``sv`` holds that flag value's
+    amplitudes only (projected on it)."""
+    if flag is None:
+        m, c, b = inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits
+        flat = np.asarray(sv).reshape(-1)
+        view = flat.reshape(flat.size >> (m + c + b), 2**b, 1, 2**c, 2**m)
+        flag = 0
+    else:
+        view = _reference_view(sv, inv)
     n_in, nb, _, nc, _ = view.shape
     root = np.sqrt(n_in)
     slices = _gram_chunk_slices(inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits)
 
     def rows(b0, b1, k0, k1):
-        r = view[:, b0:b1, flag, k0:k1, :] * root
-        if g is not None:
-            r = r * np.asarray(g)[None, None, k0:k1, None]
-        return r.reshape(n_in, -1)
+        w = root if g is None else root * np.asarray(g)[None, None, k0:k1, None]
+        return (view[:, b0:b1, flag, k0:k1, :] * w).reshape(n_in, -1)
 
     if slices >= nb * nc:
         return _gram(rows(0, nb, 0, nc))

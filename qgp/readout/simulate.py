@@ -358,6 +358,7 @@ def run_saved_statevectors(
     cap: int | None = None,
     timings: dict | None = None,
     project: dict[int, int] | None = None,
+    saved_project: dict[int, int] | None = None,
 ) -> list[np.ndarray]:
     """The statevectors ``circuit`` saves under ``labels`` (its own ``save_statevector(label=…)``
     instructions: states part-way through one run), in one simulator job. ``timings`` as in
@@ -366,7 +367,10 @@ def run_saved_statevectors(
     ``project`` (qubit → 0/1): the last label must be the circuit's final save; for it only the
     amplitudes with those qubits at those values are returned (`qgp.readout.engine.project_statevector`
     order), whichever engine ran — the numpy engine then never writes the full final state out,
-    and contracts a closing one-qubit layer on projected qubits with the wanted rows."""
+    and contracts a closing one-qubit layer on projected qubits with the wanted rows.
+    ``saved_project`` (qubit → 0/1): the same for every label but the last (states saved part-way
+    through; the last label must then be the circuit's final save); the numpy engine then copies
+    only those amplitudes out."""
     n = circuit.num_qubits
     require_memory(
         len(labels) * statevector_bytes(n), f"simulating '{circuit.name}' on {n} qubits ({len(labels)} saved states)", cap
@@ -383,10 +387,17 @@ def run_saved_statevectors(
         t0 = time.perf_counter()
         workers = _engine_threads(n)
         with blas_threads(workers):
-            if project is None:
+            if project is None and not saved_project:
                 states = simulate(circuit, labels=labels, workers=workers)
             else:
-                states = simulate(circuit, labels=labels[:-1], workers=workers, reduce=np.copy, project=project)
+                states = simulate(
+                    circuit,
+                    labels=labels[:-1],
+                    workers=workers,
+                    reduce=np.copy if project is not None else None,
+                    project=project,
+                    saved_project=saved_project,
+                )
                 states[labels[-1]] = states["final"]
         if timings is not None:
             timings["simulate"] = timings.get("simulate", 0.0) + (time.perf_counter() - t0)
@@ -401,9 +412,11 @@ def run_saved_statevectors(
         raise QgpError(f"the simulator failed: {result.status}")
     data = result.data(0)
     out = [np.asarray(data[label]) for label in labels]
-    if project is not None:
-        from qgp.readout.engine import project_statevector
+    from qgp.readout.engine import project_statevector
 
+    if saved_project:
+        out[:-1] = [project_statevector(sv, saved_project) for sv in out[:-1]]
+    if project is not None:
         out[-1] = project_statevector(out[-1], project)
     if timings is not None:
         timings["transpile"] = timings.get("transpile", 0.0) + (t1 - t0)

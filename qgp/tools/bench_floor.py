@@ -89,8 +89,8 @@ def floor_case(kind: str, clock_qubits: int, *, repeats: int = 5, aer_repeats: i
     inference; and cold: fresh buffers) and of Aer on one case, its floor and the ratios.
 
     ``kind`` "reference": the amortised reference-register run of the bench problem (n = 16,
-    exact oracle) as infer reads it: the saved state before the rotation, and the final state's
-    post-selected rows only. "inversion": one inversion with ŷ prepared, the
+    exact oracle) as infer reads it: the saved state before the rotation on its flag = 0 half, and
+    the final state's post-selected rows only. "inversion": one inversion with ŷ prepared, the
     post-selected amplitudes read from the final state (what qgp uses of it).
     """
     from qgp.circuits.inversion import build_inversion, postselection
@@ -115,8 +115,8 @@ def floor_case(kind: str, clock_qubits: int, *, repeats: int = 5, aer_repeats: i
         post = postselection(inv)
 
         def run(name):
-            with engine_scope(name):
-                return run_saved_statevectors(qc, labels, project=post)
+            with engine_scope(name):  # as infer reads it: ψ on flag = 0, the final state on the post-selected rows
+                return run_saved_statevectors(qc, labels, project=post, saved_project={inv.n_system_qubits + inv.clock_qubits: 0})
 
         saves = 1  # the snapshot; the final state is only read on the post-selected rows
     else:
