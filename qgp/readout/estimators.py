@@ -43,7 +43,7 @@ from qgp.circuits.inversion import (
     rotation_angles,
     statevector_array,
 )
-from qgp.readout.simulate import require_memory, run_counts, run_saved_statevectors, run_statevectors, statevector_bytes
+from qgp.readout.simulate import blas_threads, require_memory, run_counts, run_saved_statevectors, run_statevectors, statevector_bytes
 
 __all__ = [
     "PROBE",
@@ -413,17 +413,18 @@ def _split_reference_operators(
     )
 
 
-# Below this many multiply-adds the Gram matrix is formed by einsum's own loops (≤ ~10 ms), not
-# BLAS: right after an Aer job a multi-threaded OpenBLAS product of a 16 × 4096 matrix took
-# 0.2–0.3 s here (waking its threads on a busy 2-core machine) against 2 ms for einsum.
-_GRAM_EINSUM_LIMIT = 1 << 24
+# Below this many multiply-adds the Gram matrix is formed by BLAS on one thread: right after an Aer
+# job a multi-threaded OpenBLAS product of a 16 × 4096 matrix took 0.2–0.3 s here (waking its
+# threads on a busy 2-core machine); on one thread it takes ~0.3 ms, einsum's own loops ~1.4 ms.
+_GRAM_ONE_THREAD_LIMIT = 1 << 24
 
 
 def _gram(rows: np.ndarray) -> np.ndarray:
     """conj(rows) @ rowsᵀ."""
-    if rows.shape[0] ** 2 * rows.shape[1] <= _GRAM_EINSUM_LIMIT:
-        return np.einsum("ik,jk->ij", rows.conj(), rows)
     rows = np.ascontiguousarray(rows)
+    if rows.shape[0] ** 2 * rows.shape[1] <= _GRAM_ONE_THREAD_LIMIT:
+        with blas_threads(1):
+            return rows.conj() @ rows.T
     return rows.conj() @ rows.T
 
 
