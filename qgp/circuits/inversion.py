@@ -36,7 +36,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field, replace
 
 import numpy as np
-from qiskit.circuit import QuantumCircuit, QuantumRegister
+from qiskit.circuit import Gate, QuantumCircuit, QuantumRegister
 from qiskit.circuit.library import DiagonalGate, UCRYGate
 
 from qgp.circuits.encoding import BLOCK, SYSTEM, BlockEncoding, amplitude_encoding, check_matrix
@@ -261,6 +261,22 @@ def rotation_angles(amplitudes: np.ndarray) -> np.ndarray:
     return 2 * np.arcsin(np.clip(amplitudes, 0.0, 1.0))
 
 
+class _UnitDiagonal(DiagonalGate):
+    """qiskit's DiagonalGate (Aer's native ``diagonal``) for entries e^{±iθ/2} built here, unit
+    modulus by construction: each entry is kept as given instead of validated one by one in
+    Python (~1.5 µs an entry, measured: most of a 2^9-entry rotation's build)."""
+
+    def __init__(self, diag: np.ndarray):
+        diag = np.asarray(diag, dtype=complex)
+        if diag.ndim != 1 or diag.size < 2 or diag.size & (diag.size - 1):
+            raise QgpError("a diagonal gate needs 2^k entries")
+        Gate.__init__(self, "diagonal", diag.size.bit_length() - 1, [])
+        self._params = diag.tolist()
+
+    def validate_parameter(self, parameter):
+        return parameter
+
+
 def flag_rotation_circuit(angles: np.ndarray, form: Form = "gate") -> QuantumCircuit:
     """The uniformly controlled RY(θ_k) on ``flag`` over clock values k, on registers clock, flag.
 
@@ -280,7 +296,7 @@ def flag_rotation_circuit(angles: np.ndarray, form: Form = "gate") -> QuantumCir
     diag = np.concatenate((np.exp(-0.5j * angles), np.exp(0.5j * angles)))
     qc.sdg(flag[0])
     qc.h(flag[0])
-    qc.append(DiagonalGate(list(diag)), [*clock, flag[0]])
+    qc.append(_UnitDiagonal(diag), [*clock, flag[0]], copy=False)
     qc.h(flag[0])
     qc.s(flag[0])
     return qc

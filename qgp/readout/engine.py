@@ -346,8 +346,7 @@ class _State:
         shape = self.t.shape
         hi = math.prod(shape[:i])
         view = self.t.reshape(hi, 2 ** len(qubits), -1)
-        f = scipy.fft.fft if inverse_qft else scipy.fft.ifft
-        self.t = f(view, axis=1, norm="ortho", workers=workers, overwrite_x=True).reshape(shape)
+        self.t = _fft_in_place(view, forward=inverse_qft, workers=workers).reshape(shape)
 
     def statevector(self, project: Mapping[int, int] | None = None, scale: complex = 1.0) -> np.ndarray:
         """The statevector (a new array, the factor and ``scale`` applied), standard order (index
@@ -601,6 +600,27 @@ def _blocks(view: np.ndarray, stack: np.ndarray, out: np.ndarray, identity) -> N
             out[k] = view[k]
         else:
             np.matmul(view[k], stack[k].T, out=out[k])
+
+
+def _fft_in_place(view: np.ndarray, *, forward: bool, workers: int) -> np.ndarray:
+    """The orthonormal FFT (``forward``) or inverse FFT of ``view`` along axis 1, written over
+    ``view`` when scipy's pocketfft binding takes an output array (scipy ≥ 1.5); otherwise a new
+    array from the public `scipy.fft`. In place matters: a fresh 2^23-amplitude result measured
+    ~70 ms of page faults per transform here (208 ms against 140 ms with two threads)."""
+    c2c = getattr(_pocketfft, "c2c", None) if _pocketfft is not None else None
+    if c2c is not None and view.flags.writeable:
+        try:
+            return c2c(view, axes=[1], forward=forward, inorm=1, out=view, nthreads=workers)
+        except TypeError:  # another signature: the public route below
+            pass
+    f = scipy.fft.fft if forward else scipy.fft.ifft
+    return f(view, axis=1, norm="ortho", workers=workers, overwrite_x=True)
+
+
+try:  # scipy's own binding of pocketfft (private; `_fft_in_place` falls back to scipy.fft)
+    from scipy.fft._pocketfft import pypocketfft as _pocketfft
+except ImportError:  # pragma: no cover - depends on the scipy build
+    _pocketfft = None
 
 
 #: Largest group of qubits a fused one-qubit layer applies as one matrix (2^4 × 2^4).
