@@ -275,3 +275,102 @@ def test_the_flag_is_cut_to_its_read_out_value_right_after_the_rotation():
     [ref] = _aer([prep.circuit])
     got = engine.simulate(prep.circuit, reduce=lambda amps: amps, project=post)["final"]
     assert _worst(got, project_statevector(ref, post)) < TOL
+
+
+def _random_unitary(rng, d: int) -> np.ndarray:
+    return np.linalg.qr(rng.normal(size=(d, d)) + 1j * rng.normal(size=(d, d)))[0]
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    st.lists(st.floats(-3, 3), min_size=5, max_size=5),
+    st.sampled_from(["above", "below", "none"]),
+    st.sampled_from([1, 2]),
+    st.integers(0, 2**16),
+)
+def test_multiplexer_on_controls_in_a_known_one_qubit_state_equals_aer(angles, stored, n_targets, seed):
+    """Law: a multiplexer whose controls were only touched by one-qubit gates (so the engine keeps
+    them unstored, in their one-qubit state) gives Aer's state, whichever side of the controls the
+    other stored qubits lie (the result's control axes go before them or between them and the
+    targets) and whatever the controls' amplitudes (|+⟩ or not)."""
+    from qgp.circuits.encoding import MultiplexerGate
+
+    rng = np.random.default_rng(seed)
+    qc = QuantumCircuit(5)
+    targets = list(range(n_targets))
+    for q in targets:
+        qc.ry(angles[q], q)
+    controls = [n_targets + 1, n_targets + 2] if stored == "below" else [n_targets, n_targets + 1]
+    other = {"above": 4, "below": n_targets, "none": None}[stored]
+    if other is not None and other not in controls + targets:
+        qc.ry(angles[2], other)
+        qc.cx(other, 0)  # entangled with a target: stored before the multiplexer
+    for i, q in enumerate(controls):
+        qc.ry(angles[3 + i], q) if i else qc.h(q)
+    qc.append(MultiplexerGate([_random_unitary(rng, 2**n_targets) for _ in range(4)]), targets + controls)
+    [ref] = _aer([qc])
+    calls = []
+    original = engine._State._from_pending
+    engine._State._from_pending = lambda self, *a: (calls.append(1), original(self, *a))[1]
+    try:
+        got = engine.simulate(qc)["final"]
+    finally:
+        engine._State._from_pending = original
+    assert calls, "the multiplexer did not start from its controls' one-qubit states"
+    assert _worst(got, ref) < TOL, f"worst |Δamplitude| {_worst(got, ref):.2e}"
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    st.lists(st.tuples(st.sampled_from(["h", "ry", "cx"]), st.integers(0, 4), st.integers(0, 4), st.floats(-3, 3)),
+             min_size=1, max_size=12),
+    st.integers(0, 1),
+    st.integers(0, 1),
+    st.booleans(),
+    st.integers(0, 2**16),
+)
+def test_a_last_multiplexer_contracted_with_the_read_out_rows_equals_slicing_aers_state(ops, v3, v4, closing, seed):
+    """Law: a multiplexer on targets {0, 1} controlled by projected qubits {3, 4}, then (optionally)
+    Hadamards on them, read on those qubits' values, is contracted with the read-out rows in one
+    product; the amplitudes equal Aer's full state sliced."""
+    from qgp.circuits.encoding import MultiplexerGate
+
+    rng = np.random.default_rng(seed)
+    qc = QuantumCircuit(5)
+    for name, a, b, theta in ops:
+        b = b if b != a else (a + 1) % 5
+        {"h": lambda: qc.h(a), "ry": lambda: qc.ry(theta, a), "cx": lambda: qc.cx(a, b)}[name]()
+    qc.append(MultiplexerGate([_random_unitary(rng, 4) for _ in range(4)]), [0, 1, 3, 4])
+    if closing:
+        qc.h(3)
+        qc.h(4)
+    project = {3: v3, 4: v4}
+    [ref] = _aer([qc])
+    want = project_statevector(ref, project)
+    got = engine.simulate(qc, reduce=lambda amps: amps, project=project)["final"]
+    assert _worst(got, want) < TOL, f"worst |Δamplitude| {_worst(got, want):.2e}"
+
+
+def test_the_reference_runs_inverse_powers_are_contracted_not_applied():
+    # The amortised read-out's last multiplexer (the inverse controlled powers, controls = the clock,
+    # all projected on 0 after the closing Hadamards) is folded into the read-out product.
+    from qgp.readout.engine_program import compiled
+
+    A = _spd(8, 9)
+    lam = np.linalg.eigvalsh(A)
+    inv, _ = cached_pair(A, CircuitSettings(clock_qubits=4, evolution="exact"), (0.95 * lam[0], 1.05 * lam[-1]))
+    qc = reference_circuit(inv)
+    post = postselection(inv)
+    steps = compiled(qc).steps
+    last_mux = max(i for i, s_ in enumerate(steps) if s_[0] == "mux")
+    assert set(steps[last_mux][3]) <= set(post)
+    applied = []
+    original = engine._State.multiplexer
+    engine._State.multiplexer = lambda self, stack, *a, **k: (applied.append(stack.shape), original(self, stack, *a, **k))[1]
+    try:
+        got = engine.simulate(qc, reduce=lambda amps: amps, project=post)["final"]
+    finally:
+        engine._State.multiplexer = original
+    assert len(applied) == sum(s_[0] == "mux" for s_ in steps) - 1, "the last multiplexer was applied to the state"
+    [ref] = _aer([qc])
+    assert _worst(got, project_statevector(ref, post)) < TOL
