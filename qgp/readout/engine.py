@@ -244,6 +244,15 @@ class _State:
         cgroup, tgroup = list(reversed(controls)), list(reversed(targets))
         i = self._consecutive(cgroup)
         k = len(self.order)
+        if i == len(tgroup) and self.order[:i] == tgroup:
+            # Targets first, controls right after (the layout `_from_pending` builds above a
+            # prepared system): (T, K, rest), one product U_k·[ψ slab k] per k, strided in place.
+            shape = self.t.shape
+            view = self.t.reshape(T, K, -1)
+            out = self._scratch(shape).reshape(T, K, -1)
+            _blocks(view.transpose(1, 2, 0), stack, out.transpose(1, 2, 0), identity)
+            self.t = out.reshape(shape)
+            return
         if i is not None and self.order[k - len(tgroup) :] == tgroup and i + len(cgroup) == k - len(tgroup):
             # Controls right above the targets: the state is (hi, K, T) as it lies; K products of
             # (hi × T)(T × T) on strided views, the layout kept (cheaper than a transpose here).
@@ -274,21 +283,36 @@ class _State:
     def _from_pending(self, stack: np.ndarray, targets: list[int], controls: list[int]) -> None:
         """Σ_k |k⟩⟨k| ⊗ U_k with every control pending in a one-qubit state: the result is
         Σ_k c_k|k⟩ ⊗ U_k·ψ (c_k the product of the controls' amplitudes), written in one pass from
-        the stored state ψ without storing the controls first — one product, or one per k. The controls' axes go where the descending qubit order keeps registers
-        together (before ψ's axes, or between them and the targets)."""
+        the stored state ψ without storing the controls first — one product, or one per k.
+
+        Layouts: when only the targets are stored, or they lead, the result is [targets, controls,
+        rest] (a clock built above a prepared system then lies contiguous for its FFTs: measured
+        ~1.6× faster than along a strided axis at 24 qubits); otherwise the controls go where the
+        descending qubit order keeps registers together (before ψ's axes, or between them and
+        the targets)."""
         tgroup = list(reversed(targets))
         self._touch(targets)  # on the small ψ
+        c = _kron_vectors([self.pending[q] for q in reversed(controls)])  # controls[0] least significant
+        K, T = stack.shape[0], stack.shape[1]
+        cgroup = list(reversed(controls))
+        others = [q for q in self.order if q not in targets]
+        if not others or self.order[: len(tgroup)] == tgroup:
+            self._arrange(tgroup, [])  # a no-op unless only the (few) targets are stored
+            psi = self.t.reshape(T, -1)
+            # One product [U_k]_((t′, k), t) (T·K × T) · ψ (T × rest); the stack's copy is K·T² ≤ the result.
+            out = self._scratch((T, K, psi.shape[1]))
+            np.matmul(np.ascontiguousarray(stack.transpose(1, 0, 2)).reshape(T * K, T), psi, out=out.reshape(T * K, -1))
+            self.order = tgroup + cgroup + others
+            self._weigh(out, c, c[None, :, None], controls)
+            return
         k_axes = len(self.order)
         if self.t.size <= _CANONICAL_BELOW:  # a copy of the small ψ, not of the result
             self._arrange(sorted((q for q in self.order if q not in targets), reverse=True), tgroup)
         elif self.order[k_axes - len(tgroup) :] != tgroup:
             self._arrange([], tgroup)
-        c = _kron_vectors([self.pending[q] for q in reversed(controls)])  # controls[0] least significant
-        K, T = stack.shape[0], stack.shape[1]
         before = self.order[: len(self.order) - len(tgroup)]
         psi = self.t.reshape(-1, T)
         hi = psi.shape[0]
-        cgroup = list(reversed(controls))
         if before and min(before) > max(controls):
             # [ψ's axes, controls, targets]: one product ψ (hi × T) · [U_kᵀ]_k (T × K·T), the
             # stack read transposed in place by BLAS (no copy).
@@ -302,7 +326,12 @@ class _State:
             np.matmul(psi[None], stack.transpose(0, 2, 1), out=out)
             self.order = cgroup + before + tgroup
             weights = c[:, None, None]
-        if np.all(c == c[0]):  # e.g. every control |+⟩: one number, kept in the factor
+        self._weigh(out, c, weights, controls)
+
+    def _weigh(self, out: np.ndarray, c: np.ndarray, weights: np.ndarray, controls: list[int]) -> None:
+        """Finish `_from_pending`: the controls' amplitudes applied (kept in the factor when they
+        are one number, e.g. every control |+⟩), the controls stored, ``out`` the state."""
+        if np.all(c == c[0]):
             self.factor *= complex(c[0])
         else:
             out *= weights
@@ -326,9 +355,13 @@ class _State:
         K = columns.shape[0]
         view = self.t.reshape(hi, K, -1)
         if keep is not None:
-            out = self._scratch(view.shape)
-            np.multiply(view, columns[:, keep][None, :, None], out=out)
-            self.t = out.reshape(shape)
+            # In place (measured ~2× a copy to the other buffer), with the innermost axis the
+            # longest one numpy's loop sees (a trailing axis of length 1 made it 3× slower).
+            col = columns[:, keep]
+            if view.shape[2] == 1:
+                view.reshape(hi, K)[...] *= col[None, :]
+            else:
+                view *= col[None, :, None]
             self.fixed[target] = keep
             return
         out = self._scratch((2, hi, K, view.shape[2]))
