@@ -9,6 +9,7 @@ circuits stage (the LCU decomposition's guard) and the read-out stage use one de
 from __future__ import annotations
 
 import os
+import time
 
 from qgp.errors import QgpError
 
@@ -121,9 +122,25 @@ def default_memory_cap() -> int:
     return available_memory_bytes() // 2
 
 
+#: (time.monotonic(), cap, the functions that read it) of the last default-cap reading, for needs
+#: far below it (`require_memory`).
+_LAST_CAP: tuple = (-1.0, 0, None)
+
+
 def require_memory(n_bytes: int, what: str, cap: int | None = None) -> None:
-    """Raise before allocating when ``n_bytes`` exceeds the cap."""
-    cap = default_memory_cap() if cap is None else int(cap)
+    """Raise before allocating when ``n_bytes`` exceeds the cap. A need below 1/64 of a default cap
+    read under a second ago (by the same functions) is checked against that reading: reading /proc
+    and the cgroup files costs ~0.1 ms, as much as simulating a small circuit. Larger needs read
+    the memory again."""
+    global _LAST_CAP
+    if cap is None:
+        readers = (default_memory_cap, available_memory_bytes)
+        seen_at, seen, seen_readers = _LAST_CAP
+        if seen_readers == readers and 64 * n_bytes <= seen and time.monotonic() - seen_at < 1.0:
+            return
+        cap = default_memory_cap()
+        _LAST_CAP = (time.monotonic(), cap, readers)
+    cap = int(cap)
     if n_bytes > cap:
         raise QgpError(
             f"{what} needs {n_bytes / 2**30:.3g} GiB, above the memory cap of {cap / 2**30:.3g} GiB; "
