@@ -6,8 +6,13 @@ tensor with one axis per qubit, and replaces an inverse QFT or QFT written out a
 phases and swaps (``qgp.circuits.phase_estimation``) by one FFT along the clock axes: the same
 unitary, QFT|j⟩ = 2^(−c/2) Σ_k e^{2πi jk/2^c}|k⟩ (Nielsen & Chuang eq. 5.2), recognised by
 matching the instructions one by one against qiskit's own synthesis. Qubits still in |0⟩ are not
-stored until a gate touches them, so a state preparation or a layer of Hadamards on a fresh clock
-costs a fraction of one pass over the final state. Nothing here reads A or its eigenvectors.
+stored until a gate touches them, and qubits touched only by one-qubit gates stay one-qubit states
+until a gate needs them: a layer of Hadamards on a fresh clock costs nothing, and the controlled
+powers after it are written from the small stored state in one pass. With a projected read-out,
+the flag rotation writes only the kept half, and the last multiplexers (the inverse powers) and
+the closing layer are contracted with the read-out rows in one read. Each of these is a product
+of the circuit's own operators in another order (linearity); nothing here reads A or its
+eigenvectors.
 
 Aer stays the reference: ``tests/readout/test_engine.py`` checks every circuit qgp simulates, for
 every registered method, against Aer's statevector to 1e-12. A circuit holding an instruction
