@@ -79,6 +79,7 @@ def _all_off():
     stack.enter_context(_patched(State, "projected", _unfused_projected(State.projected)))
     stack.enter_context(_patched(State, "_conditioned_expand", _unfused_rotation(State._conditioned_expand)))
     stack.enter_context(_patched(engine, "_pocketfft", None))
+    stack.enter_context(_patched(State, "fft_diagonal_fft", lambda self, *a: False))
     return stack
 
 
@@ -98,6 +99,11 @@ FUSIONS = {
         "both flag halves written, then cut",
         "the kept half, in place",
         lambda: _patched(State, "_conditioned_expand", _unfused_rotation(State._conditioned_expand)),
+    ),
+    "iQFT · flag rotation · QFT as one four-step transform": (
+        "two FFTs and the rotation's pass",
+        "three passes, the middle one in cache",
+        lambda: _patched(State, "fft_diagonal_fft", lambda self, *a: False),
     ),
     "FFT in place": ("scipy.fft into a new array", "pocketfft over the state", lambda: _patched(engine, "_pocketfft", None)),
 }

@@ -406,3 +406,39 @@ def test_two_last_multiplexers_contracted_in_turn_equal_slicing_aers_state(angle
     want = project_statevector(ref, project)
     got = engine.simulate(qc, reduce=lambda amps: amps, project=project)["final"]
     assert _worst(got, want) < TOL, f"worst |Δamplitude| {_worst(got, want):.2e}"
+
+
+@pytest.mark.parametrize("c, hi", [(12, 1), (13, 3), (15, 16)])
+def test_four_step_transform_equals_numpys_fft_diagonal_ifft(c, hi):
+    # x ← IFFT(d ⊙ FFT(x)) along the last axis, orthonormal; reference: numpy.fft (an outside
+    # implementation of the same DFT).
+    rng = np.random.default_rng(c + hi)
+    x = rng.normal(size=(hi, 2**c)) + 1j * rng.normal(size=(hi, 2**c))
+    d = rng.uniform(0, 1, 2**c) * np.exp(1j * rng.uniform(0, 2 * np.pi, 2**c))
+    want = np.fft.ifft(d * np.fft.fft(x, axis=1, norm="ortho"), axis=1, norm="ortho")
+    for workers in (1, 2):
+        got = x.copy()
+        engine._fft_diagonal_ifft(got, d, workers)
+        assert _worst(got, want) < TOL, f"c={c}, hi={hi}, workers={workers}: {_worst(got, want):.2e}"
+
+
+def test_a_large_clocks_iqft_rotation_qft_run_as_one_transform_equal_aer():
+    # From 12 clock qubits the inverse QFT, the flag rotation cut to flag = 1 and the QFT run as one
+    # four-step transform (clock after the prepared system, so its axis is the last); the read-out
+    # amplitudes equal Aer's post-selected ones.
+    A = _spd(16, 9)
+    lam = np.linalg.eigvalsh(A)
+    inv, _ = cached_pair(A, CircuitSettings(clock_qubits=12, evolution="exact"), (0.95 * lam[0], 1.05 * lam[-1]))
+    prep = with_preparation(inv, _unit(16, 4))
+    post = postselection(prep)
+    calls = []
+    original = engine._State.fft_diagonal_fft
+    engine._State.fft_diagonal_fft = lambda self, *a: (calls.append(original(self, *a)), calls[-1])[1]
+    try:
+        got = engine.simulate(prep.circuit, reduce=lambda amps: amps, project=post)["final"]
+    finally:
+        engine._State.fft_diagonal_fft = original
+    assert calls == [True], "the four-step transform did not run"
+    [ref] = _aer([prep.circuit])
+    worst = _worst(got, project_statevector(ref, post))
+    assert worst < TOL, f"worst |Δamplitude| {worst:.2e}"
