@@ -87,7 +87,7 @@ FUSIONS = {
     "every fusion below": ("all fusions off", "all on", _all_off),
     "controlled powers from the clock's |+⟩^c": (
         "clock stored, then the multiplexer on the whole state",
-        "c_k·U_k·ψ written from the small stored state (and, above a prepared system, the clock after it: contiguous FFTs)",
+        "c_k·U_k·ψ written from the small stored state (and, above a prepared system, the clock after it: contiguous FFTs, which the four-step transform needs)",
         lambda: _patched(State, "_from_pending", _unfused_pending),
     ),
     "inverse powers contracted with the read-out rows": (
@@ -97,12 +97,12 @@ FUSIONS = {
     ),
     "flag rotation cut as it is written": (
         "both flag halves written, then cut",
-        "the kept half, in place",
+        "the kept half, in place (inside the four-step transform when that runs: then no difference)",
         lambda: _patched(State, "_conditioned_expand", _unfused_rotation(State._conditioned_expand)),
     ),
     "iQFT · flag rotation · QFT as one four-step transform": (
         "two FFTs and the rotation's pass",
-        "three passes, the middle one in cache",
+        "three passes, the middle one in cache (from 12 clock qubits, with no saved state between)",
         lambda: _patched(State, "fft_diagonal_fft", lambda self, *a: False),
     ),
     "FFT in place": ("scipy.fft into a new array", "pocketfft over the state", lambda: _patched(engine, "_pocketfft", None)),
