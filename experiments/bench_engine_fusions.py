@@ -17,9 +17,7 @@ from __future__ import annotations
 import argparse
 import contextlib
 import json
-import statistics
 import sys
-import time
 from pathlib import Path
 
 import numpy as np
@@ -35,6 +33,8 @@ from qgp.readout.estimators import _reference_with_snapshot  # noqa: E402
 from qgp.readout.inference import unit_inputs  # noqa: E402
 from qgp.readout.simulate import engine_scope, run_saved_statevectors, run_statevectors  # noqa: E402
 from qgp.tools.bench import _bench_problem, _exact_circuit  # noqa: E402
+
+from bench_optimisations import _alternate  # noqa: E402  (this folder: the same alternating timer)
 
 State = engine._State
 
@@ -133,19 +133,15 @@ def _cases():
 
 
 def _time(run, off, repeats: int):
-    before, after = [], []
+    def unfused():
+        with off():
+            return run()
+
     with engine.buffer_pool():
         run()
-        for _ in range(repeats):
-            with off():
-                t0 = time.perf_counter()
-                rb = run()
-                before.append(time.perf_counter() - t0)
-            t0 = time.perf_counter()
-            ra = run()
-            after.append(time.perf_counter() - t0)
+        tb, ta, rb, ra = _alternate(unfused, run, repeats)
     diff = max(float(np.max(np.abs(np.asarray(a) - np.asarray(b)))) for a, b in zip(ra, rb))
-    return statistics.median(before), statistics.median(after), diff
+    return tb, ta, diff
 
 
 def main(argv=None) -> int:

@@ -61,6 +61,16 @@ def _aer(circuits):
     return out
 
 
+def _prepared_inversion(n: int, clock_qubits: int):
+    """The exact-oracle inversion of an n × n SPD matrix with a unit input prepared, and its
+    post-selection (flag = 1, clock = 0)."""
+    A = _spd(n, 9)
+    lam = np.linalg.eigvalsh(A)
+    inv, _ = cached_pair(A, CircuitSettings(clock_qubits=clock_qubits, evolution="exact"), (0.95 * lam[0], 1.05 * lam[-1]))
+    prep = with_preparation(inv, _unit(n, 4))
+    return prep, postselection(prep)
+
+
 def _worst(a, b) -> float:
     return float(np.max(np.abs(np.asarray(a) - np.asarray(b))))
 
@@ -261,11 +271,7 @@ def test_the_flag_is_cut_to_its_read_out_value_right_after_the_rotation():
     from qgp.readout.engine import _cut_points
     from qgp.readout.engine_program import compiled
 
-    A = _spd(8, 9)
-    lam = np.linalg.eigvalsh(A)
-    inv, _ = cached_pair(A, CircuitSettings(clock_qubits=4, evolution="exact"), (0.95 * lam[0], 1.05 * lam[-1]))
-    prep = with_preparation(inv, _unit(8, 4))
-    post = postselection(prep)
+    prep, post = _prepared_inversion(8, 4)
     flag = prep.circuit.find_bit(prep.circuit.qregs[[r.name for r in prep.circuit.qregs].index("flag")][0]).index
     steps = compiled(prep.circuit).steps
     cut = _cut_points(steps, post, [], set())
@@ -426,11 +432,7 @@ def test_a_large_clocks_iqft_rotation_qft_run_as_one_transform_equal_aer():
     # From 12 clock qubits the inverse QFT, the flag rotation cut to flag = 1 and the QFT run as one
     # four-step transform (clock after the prepared system, so its axis is the last); the read-out
     # amplitudes equal Aer's post-selected ones.
-    A = _spd(16, 9)
-    lam = np.linalg.eigvalsh(A)
-    inv, _ = cached_pair(A, CircuitSettings(clock_qubits=12, evolution="exact"), (0.95 * lam[0], 1.05 * lam[-1]))
-    prep = with_preparation(inv, _unit(16, 4))
-    post = postselection(prep)
+    prep, post = _prepared_inversion(16, 12)
     calls = []
     original = engine._State.fft_diagonal_fft
     engine._State.fft_diagonal_fft = lambda self, *a: (calls.append(original(self, *a)), calls[-1])[1]
