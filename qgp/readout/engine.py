@@ -12,9 +12,8 @@ powers after it are written from the small stored state in one pass. With a proj
 the flag rotation writes only the kept half (between a large clock's inverse QFT and QFT, the
 three run as one four-step transform of three passes: `_fft_diagonal_ifft`), and the last
 multiplexers (the inverse powers) and the closing layer are contracted with the read-out rows in
-one read. Each of these is a product
-of the circuit's own operators in another order (linearity); nothing here reads A or its
-eigenvectors.
+one read. Each of these is a product of the circuit's own operators in another order (linearity);
+nothing here reads A or its eigenvectors.
 
 Aer stays the reference: ``tests/readout/test_engine.py`` checks every circuit qgp simulates, for
 every registered method, against Aer's statevector to 1e-12. A circuit holding an instruction
