@@ -365,8 +365,11 @@ class _State:
             # In place (measured ~2× a copy to the other buffer), with the innermost axis the
             # longest one numpy's loop sees (a trailing axis of length 1 made it 3× slower).
             col = np.ascontiguousarray(columns[:, keep])  # a strided column measured 2.8× slower
-            flat = view.reshape(hi, K) if view.shape[2] == 1 else view
-            flat *= col[None, :] if view.shape[2] == 1 else col[None, :, None]
+            if view.shape[2] == 1:
+                flat = view.reshape(hi, K)
+                flat *= col[None, :]
+            else:
+                view *= col[None, :, None]
             self.fixed[target] = keep
             return
         out = self._scratch((2, hi, K, view.shape[2]))
@@ -475,16 +478,7 @@ class _State:
                 order.pop(ax)
             elif v:  # a qubit still in |0⟩ projected on 1
                 factor = 0.0
-        want = [q for q in range(self.n - 1, -1, -1) if q not in project]  # most significant first
-        moved = t.transpose([order.index(q) for q in want if q in order])
-        if len(order) == len(want):  # every qubit stored: no zeros to write
-            out = np.empty(moved.shape, dtype=complex)
-            np.multiply(moved, factor, out=out)
-            return out.reshape(-1)
-        out = np.zeros((2,) * len(want), dtype=complex)
-        index = tuple(slice(None) if q in order else 0 for q in want)
-        np.multiply(moved, factor, out=out[index])
-        return out.reshape(-1)
+        return _standard_order(t, order, factor, [q for q in range(self.n) if q not in project])
 
     def projected(self, project: Mapping[int, int], closing: list[dict], muxes: tuple = ()) -> np.ndarray:
         """The amplitudes with each qubit q of ``project`` at ``project[q]`` after the ``closing``
@@ -540,13 +534,7 @@ class _State:
         for mux in muxes:
             t, order = _contract_multiplexer(t, order, rows, mux[1], mux[2], mux[3], free)
             free = None  # the next one's ψ may lie in it
-        rest = [q for q in range(self.n) if q not in project]
-        out = np.zeros((2,) * len(rest), dtype=complex)
-        want = sorted(rest, reverse=True)
-        index = tuple(slice(None) if q in order else 0 for q in want)
-        moved = np.asarray(t).transpose([order.index(q) for q in want if q in order]) if order else np.asarray(t)
-        out[index] = moved * factor
-        return out.reshape(-1)
+        return _standard_order(t, order, factor, [q for q in range(self.n) if q not in project])
 
     def release(self, reduce=None):
         """The final statevector (a new array, the factor applied), or ``reduce`` of it (given a
@@ -707,6 +695,22 @@ def simulate(
 _CANONICAL_BELOW = 1 << 12
 #: A multiplexer whose controls sit below at most this many amplitudes' worth of axes loops over them.
 _LEADING_LOOP = 16
+
+
+def _standard_order(t, order: list[int], factor: complex, rest: list[int]) -> np.ndarray:
+    """A new flat array over the qubits ``rest`` in qiskit's order (most significant first): the
+    stored tensor ``t`` (axes ``order`` ⊆ ``rest``) times ``factor``, zeros where an unstored
+    qubit of ``rest`` (still |0⟩) is 1."""
+    want = sorted(rest, reverse=True)
+    moved = np.asarray(t).transpose([order.index(q) for q in want if q in order])
+    if len(order) == len(want):  # every qubit stored: no zeros to write
+        out = np.empty(moved.shape, dtype=complex)
+        np.multiply(moved, factor, out=out)
+        return out.reshape(-1)
+    out = np.zeros((2,) * len(want), dtype=complex)
+    # The trailing Ellipsis keeps a view when every index is an integer (a 0-d result).
+    np.multiply(moved, factor, out=out[(*(slice(None) if q in order else 0 for q in want), Ellipsis)])
+    return out.reshape(-1)
 
 
 def _kron_vectors(vectors: list[np.ndarray]) -> np.ndarray:

@@ -114,13 +114,11 @@ def reference_circuit(inv: InversionCircuit, reference_qubits: int | None = None
     return qc
 
 
-def _reference_view(sv: np.ndarray, inv: InversionCircuit) -> np.ndarray:
+def _reference_view(sv: np.ndarray, inv: InversionCircuit, flags: int = 2) -> np.ndarray:
     """A view of a reference-register statevector as [r, block, flag, clock, system] (no copy;
-    amplitudes scaled by √(columns) still to apply)."""
+    amplitudes scaled by √(columns) still to apply); ``flags`` = 1 for one projected on a flag value."""
     m, c, b = inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits
-    n_inv = inv.circuit.num_qubits
-    sv = np.asarray(sv).reshape(-1)
-    return sv.reshape(sv.size >> n_inv, 2**b, 2, 2**c, 2**m)
+    return np.asarray(sv).reshape(-1, 2**b, flags, 2**c, 2**m)
 
 
 def _postselected_columns(sv: np.ndarray, inv: InversionCircuit) -> np.ndarray:
@@ -290,13 +288,8 @@ def _gram_of_slices(sv: np.ndarray, inv: InversionCircuit, flag: int | None, g: 
     so that no copy of half the statevector is made. When every slice fits in one chunk this is
     the single product of the unchunked rows. ``flag`` None: ``sv`` holds that flag value's
     amplitudes only (projected on it)."""
-    if flag is None:
-        m, c, b = inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits
-        flat = np.asarray(sv).reshape(-1)
-        view = flat.reshape(flat.size >> (m + c + b), 2**b, 1, 2**c, 2**m)
-        flag = 0
-    else:
-        view = _reference_view(sv, inv)
+    view = _reference_view(sv, inv, flags=1 if flag is None else 2)
+    flag = flag or 0
     n_in, nb, _, nc, _ = view.shape
     root = np.sqrt(n_in)
     slices = _gram_chunk_slices(inv.n_system_qubits, inv.clock_qubits, inv.n_block_qubits)
