@@ -7,7 +7,7 @@ are ~100 instructions deep, so round-off stays near 1e-15 (measured worst here: 
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import assume, given, settings, strategies as st
 from qiskit import QuantumCircuit
 from qiskit.circuit.library import QFTGate
 from qiskit.quantum_info import Operator
@@ -324,6 +324,56 @@ def test_multiplexer_on_controls_in_a_known_one_qubit_state_equals_aer(angles, s
         engine._State._from_pending = original
     assert calls, "the multiplexer did not start from its controls' one-qubit states"
     assert _worst(got, ref) < TOL, f"worst |Δamplitude| {_worst(got, ref):.2e}"
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.sampled_from(["above", "below"]), st.booleans(), st.booleans(), st.integers(0, 2**16))
+def test_a_multiplexer_on_a_reference_registers_state_is_copied_and_equals_aer(where, ref_first, plus, seed):
+    """Law: on Σ_r |r⟩|r⟩ (Hadamards on a reference register, CNOTs onto the targets, the Choi
+    state a reference-register run starts from) the multiplexer's result is its stack times a
+    number: the engine copies the stack instead of multiplying (`_State._copied`), with the
+    reference register above or below the controls, written from either side, controls in |+⟩
+    or not; the state equals Aer's (reference: Aer's statevector)."""
+    from qgp.circuits.encoding import MultiplexerGate
+
+    rng = np.random.default_rng(seed)
+    targets, controls = [0, 1], ([2, 3] if where == "above" else [4, 5])
+    ref = [4, 5] if where == "above" else [2, 3]
+    qc = QuantumCircuit(6)
+    for r, t in zip(ref, targets):
+        if ref_first:
+            qc.h(r)
+            qc.cx(r, t)
+        else:
+            qc.h(t)
+            qc.cx(t, r)
+    for q in controls:
+        qc.h(q) if plus else qc.ry(0.7, q)
+    qc.append(MultiplexerGate([_random_unitary(rng, 4) for _ in range(4)]), targets + controls)
+    [want] = _aer([qc])
+    copied = []
+    original = engine._State._copied
+    engine._State._copied = lambda self, *a: (copied.append(r := original(self, *a)), r)[1]
+    try:
+        got = engine.simulate(qc)["final"]
+    finally:
+        engine._State._copied = original
+    assert any(copied), "the multiplexer on s·I was multiplied, not copied"
+    assert _worst(got, want) < TOL, f"worst |Δamplitude| {_worst(got, want):.2e}"
+
+
+@settings(max_examples=50, deadline=None)
+@given(st.integers(2, 6), st.complex_numbers(max_magnitude=10, allow_nan=False, allow_infinity=False),
+       st.integers(0, 35), st.floats(1e-300, 1.0))
+def test_scaled_identity_is_found_exactly(n, s, where, eps):
+    """Law: `_scaled_identity` answers s for s·I (s ≠ 0, n ≥ 2) and None once any one entry differs."""
+    assume(s != 0)
+    psi = s * np.eye(n, dtype=complex)
+    assert engine._scaled_identity(psi) == s
+    i, j = divmod(where % (n * n), n)
+    psi[i, j] += eps * (1 + abs(s))
+    if psi[i, j] != (s if i == j else 0):
+        assert engine._scaled_identity(psi) is None
 
 
 @settings(max_examples=30, deadline=None)
