@@ -45,8 +45,9 @@ from qgp.circuits.phase_estimation import (
     CLOCK,
     Form,
     PhaseOracle,
-    inverse_phase_estimation_circuit,
-    phase_estimation_circuit,
+    append_inverse_phase_estimation,
+    append_phase_estimation,
+    append_unchecked,
 )
 from qgp.errors import QgpError
 from qgp.settings import CircuitSettings, Rotation, choices
@@ -64,6 +65,7 @@ __all__ = [
     "rotation_constants",
     "rotation_angles",
     "flag_rotation_circuit",
+    "append_flag_rotation",
     "eigenvalue_filter",
     "postselected_system_amplitudes",
     "postselection",
@@ -90,7 +92,8 @@ class InversionCircuit:
     of W, including the uncompute; ``n_pauli_terms`` the Pauli strings the oracle is built from
     (0 for ``exact`` and the dilation walk). ``oracle`` is the phase oracle the circuit was built
     with and ``rotation_start`` the index in ``circuit.data`` where the flag rotation begins (what
-    comes before it is state preparation and phase estimation).
+    comes before it is state preparation and phase estimation), ``prefix_phase`` the circuit's
+    global phase at that point.
     """
 
     circuit: QuantumCircuit
@@ -115,6 +118,7 @@ class InversionCircuit:
     n_pauli_terms: int = 0
     oracle: PhaseOracle | None = field(default=None, repr=False, compare=False)
     rotation_start: int | None = None
+    prefix_phase: float = 0.0
     #: QSVT (``settings.method = "qsvt"``): the polynomial the circuit applies to A/α
     #: (qgp.circuits.polynomials) and the phase factors' measured residual; None for phase estimation.
     polynomial: object | None = field(default=None, repr=False, compare=False)
@@ -289,17 +293,23 @@ def flag_rotation_circuit(angles: np.ndarray, form: Form = "gate") -> QuantumCir
     clock = QuantumRegister(c, CLOCK)
     flag = QuantumRegister(1, FLAG)
     qc = QuantumCircuit(clock, flag, name="flag-rotation")
+    append_flag_rotation(qc, angles, form, clock, flag[0])
+    return qc
+
+
+def append_flag_rotation(qc: QuantumCircuit, angles: np.ndarray, form: Form, clock, flag) -> None:
+    """`flag_rotation_circuit`'s instructions appended to ``qc`` on the given clock qubits and flag."""
+    angles = np.asarray(angles, dtype=float)
     if form == "gate":
-        qc.append(UCRYGate([float(x) for x in angles]), [flag[0], *clock])
-        return qc
+        qc.append(UCRYGate([float(x) for x in angles]), [flag, *clock])
+        return
     # Index of the diagonal on [clock…, flag] is k + 2^c·f: RZ(θ) = diag(e^{−iθ/2}, e^{iθ/2}).
     diag = np.concatenate((np.exp(-0.5j * angles), np.exp(0.5j * angles)))
-    qc.sdg(flag[0])
-    qc.h(flag[0])
-    qc.append(_UnitDiagonal(diag), [*clock, flag[0]], copy=False)
-    qc.h(flag[0])
-    qc.s(flag[0])
-    return qc
+    qc.sdg(flag)
+    qc.h(flag)
+    append_unchecked(qc, _UnitDiagonal(diag), [*clock, flag])
+    qc.h(flag)
+    qc.s(flag)
 
 
 def build_inversion(
@@ -312,6 +322,7 @@ def build_inversion(
     uncompute: bool | None = None,
     form: Form = "gate",
     oracle: PhaseOracle | None = None,
+    prefix: InversionCircuit | None = None,
 ) -> InversionCircuit:
     """Build the inversion circuit for A with the a-priori eigenvalue bounds (λ_lo, λ_hi).
 
@@ -320,15 +331,25 @@ def build_inversion(
     amplitude encoding of that vector on ``system``. ``uncompute`` defaults to True for
     ``inverse`` and False for ``inverse_sqrt`` (whose answer, P(flag = 1), needs no uncompute).
     ``oracle`` reuses a phase oracle already built for the same A, settings, bounds and form (the
-    ``inverse`` and ``inverse_sqrt`` circuits share one). ``settings.method = "qsvt"`` builds the
-    QSVT circuit instead (qgp.circuits.qsvt_inversion; the same read-out).
+    ``inverse`` and ``inverse_sqrt`` circuits share one). ``prefix``: an inversion built for the
+    same A, settings, bounds and form; its oracle and its instructions before the rotation (the
+    phase estimation, and its prepared vector if it has one) are reused instead of built again, so
+    the two circuits share that prefix by construction (``prepare`` must then be None).
+    ``settings.method = "qsvt"`` builds the QSVT circuit instead (qgp.circuits.qsvt_inversion; the
+    same read-out).
     """
     if settings.method != "phase_estimation":
         builder = _other_builders().get(settings.method)
         if builder is None:
             raise QgpError(f"unknown [circuit] method {settings.method!r}; choose 'phase_estimation' or one of {tuple(_other_builders())}")
-        return builder(A, settings, rotation, bounds, prepare=prepare, uncompute=uncompute, form=form, oracle=oracle)
+        return builder(A, settings, rotation, bounds, prepare=prepare, uncompute=uncompute, form=form, oracle=oracle, prefix=prefix)
     a, lo, hi = check_inversion_inputs(A, settings, rotation, bounds, form)
+    if prefix is not None:
+        if prepare is not None:
+            raise QgpError("build_inversion: give either prepare or prefix (a prefix carries its own prepared vector)")
+        if (prefix.settings, prefix.form, prefix.bounds) != (settings, form, (lo, hi)) or prefix.rotation_start is None:
+            raise QgpError("build_inversion: the prefix was built for other settings, form or bounds; build without it")
+        oracle = oracle or prefix.oracle
     m = a.shape[0].bit_length() - 1
     if uncompute is None:
         uncompute = rotation == "inverse"
@@ -363,18 +384,25 @@ def build_inversion(
     if oracle.n_block_qubits:
         block = QuantumRegister(oracle.n_block_qubits, BLOCK)
         regs.append(block)
-    qc = QuantumCircuit(*regs, name=f"inversion-{rotation}")
-    # copy=False: the pieces are fresh, and deep-copying nested controlled gates dominated the
-    # build time of large LCU walks.
-    if encode is not None:
-        qc.compose(encode, qubits=system[:], inplace=True, copy=False)
-    qpe_qubits = [*system, *clock, *block]
-    qc.compose(phase_estimation_circuit(oracle), qubits=qpe_qubits, inplace=True, copy=False)
-    rotation_start = len(qc.data)
-    rotation_circuit = flag_rotation_circuit(rotation_angles(amplitudes), form)
-    qc.compose(rotation_circuit, qubits=[*clock, flag[0]], inplace=True, copy=False)
+    if prefix is not None:
+        # The prefix's registers and instructions as they are (immutable; shared as compose's
+        # copy=False shares operations): measured 0.05 ms against ~0.8 ms to build them again.
+        qc = QuantumCircuit(*prefix.circuit.qregs, name=f"inversion-{rotation}", global_phase=prefix.prefix_phase)
+        named = {r.name: r for r in qc.qregs}
+        system, clock, flag, block = named[SYSTEM], named[CLOCK], named[FLAG], named.get(BLOCK, [])
+        for inst in prefix.circuit.data[: prefix.rotation_start]:
+            qc._append(inst)
+    else:
+        qc = QuantumCircuit(*regs, name=f"inversion-{rotation}")
+        # copy=False: the pieces are fresh, and deep-copying nested controlled gates dominated the
+        # build time of large LCU walks.
+        if encode is not None:
+            qc.compose(encode, qubits=system[:], inplace=True, copy=False)
+        append_phase_estimation(qc, oracle, system, clock, block)
+    rotation_start, prefix_phase = len(qc.data), float(qc.global_phase)
+    append_flag_rotation(qc, rotation_angles(amplitudes), form, clock, flag[0])
     if uncompute:
-        qc.compose(inverse_phase_estimation_circuit(oracle), qubits=qpe_qubits, inplace=True, copy=False)
+        append_inverse_phase_estimation(qc, oracle, system, clock, block)
 
     kappa = method.effective_condition_number(lo, hi, oracle.alpha)
     return InversionCircuit(
@@ -400,6 +428,7 @@ def build_inversion(
         n_pauli_terms=oracle.n_pauli_terms,
         oracle=oracle,
         rotation_start=rotation_start,
+        prefix_phase=prefix_phase,
     )
 
 

@@ -106,9 +106,11 @@ def build_qsvt_inversion(
     uncompute: bool | None = None,
     form: Form = "gate",
     oracle=None,
+    prefix=None,
 ) -> InversionCircuit:
-    """`qgp.circuits.inversion.build_inversion` for ``method = "qsvt"`` (same arguments; ``uncompute``
-    and ``oracle`` do not apply: the sequence leaves nothing to undo, and there is no phase oracle).
+    """`qgp.circuits.inversion.build_inversion` for ``method = "qsvt"`` (same arguments; ``uncompute``,
+    ``oracle`` and ``prefix`` do not apply: the sequence leaves nothing to undo, there is no phase
+    oracle, and the two rotations' sequences share no prefix).
 
     A is never eigensolved here (the dilation encoding diagonalises A only to build √(I − A²/α²)).
     """

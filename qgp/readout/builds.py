@@ -65,12 +65,13 @@ def inversion_key(A, circuit: CircuitSettings, rotation: str, bounds, form: str 
 def cached_pair(
     A, circuit: CircuitSettings, bounds, form: str = SIMULATED_FORM
 ) -> tuple[InversionCircuit, InversionCircuit]:
-    """The ``inverse`` and ``inverse_sqrt`` circuits, built once around one shared phase oracle
-    (``form="gate"``: the gate form a device would run, which gate noise acts on)."""
+    """The ``inverse`` and ``inverse_sqrt`` circuits, built once around one shared phase oracle, the
+    second reusing the first's phase estimation (``form="gate"``: the gate form a device would
+    run, which gate noise acts on)."""
 
     def make():
         inv = build_inversion(A, circuit, "inverse", bounds, form=form)
-        inv_sqrt = build_inversion(A, circuit, "inverse_sqrt", bounds, form=form, oracle=inv.oracle)
+        inv_sqrt = build_inversion(A, circuit, "inverse_sqrt", bounds, form=form, prefix=inv)
         return inv, inv_sqrt
 
     return cached(_INVERSIONS, inversion_key(A, circuit, "pair", bounds, form), make)

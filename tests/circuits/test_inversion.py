@@ -318,3 +318,37 @@ def test_build_inversion_refuses_bad_input(a, settings, bounds, kwargs, word):
     rotation = kwargs.pop("rotation", "inverse")
     with pytest.raises(QgpError, match=word):
         build_inversion(a, settings, rotation, bounds, **kwargs)
+
+
+@pytest.mark.parametrize("a, oracle", FORM_CASES)
+@pytest.mark.parametrize("form", ["gate", "simulation"])
+@pytest.mark.parametrize("uncompute", [None, True])
+def test_a_circuit_built_on_anothers_phase_estimation_is_the_one_built_afresh(a, oracle, form, uncompute):
+    # ``prefix`` reuses the inverse circuit's phase estimation for the inverse_sqrt one: the same
+    # operator (reference: qiskit's Operator of the circuit built without it), and the two circuits'
+    # instructions before the rotation are the same objects.
+    s = CircuitSettings(clock_qubits=3, **oracle)
+    lam = np.linalg.eigvalsh(a)
+    bounds = (lam[0], lam[-1])
+    inv = build_inversion(a, s, "inverse", bounds, form=form)
+    shared = build_inversion(a, s, "inverse_sqrt", bounds, form=form, uncompute=uncompute, prefix=inv)
+    fresh = build_inversion(a, s, "inverse_sqrt", bounds, form=form, uncompute=uncompute)
+    assert [r.name for r in shared.circuit.qregs] == [r.name for r in fresh.circuit.qregs]
+    assert shared.rotation_start == fresh.rotation_start == inv.rotation_start
+    assert all(
+        x.operation is y.operation
+        for x, y in zip(shared.circuit.data[: inv.rotation_start], inv.circuit.data[: inv.rotation_start])
+        if not x.is_standard_gate()
+    )
+    resid = np.max(np.abs(Operator(shared.circuit).data - Operator(fresh.circuit).data))
+    assert resid < 1e-10, f"worst operator entry residual {resid:.3g}"
+
+
+def test_a_prefix_with_a_prepared_vector_or_other_settings_is_refused():
+    a = TWO_BY_TWO
+    s = CircuitSettings(clock_qubits=3, evolution="exact")
+    inv = build_inversion(a, s, "inverse", (1.0, 2.0))
+    with pytest.raises(QgpError, match="either prepare or prefix"):
+        build_inversion(a, s, "inverse_sqrt", (1.0, 2.0), prepare=np.array([0.8, 0.6]), prefix=inv)
+    with pytest.raises(QgpError, match="other settings"):
+        build_inversion(a, s, "inverse_sqrt", (0.9, 2.0), prefix=inv)
