@@ -282,15 +282,34 @@ def _merged_multiplexers(data, pos: int, index: dict) -> tuple[np.ndarray, list[
             _STACKS.move_to_end(key)
             return hit[1], targets, sorted(controls), length
     stack = _stack_of(ops[0])
-    for op in ops[1:]:
-        # New control index = k + K·l (the new controls are more significant).
-        stack = np.matmul(_stack_of(op)[:, None], stack[None]).reshape(-1, *stack.shape[1:])
-    stack = _sorted_controls(stack, controls)
+    n_first = len(qs) - n_t
+    order = controls[:n_first]  # the merged stack's controls, least significant first
+    for op, oc in zip(ops[1:], _control_groups(controls[n_first:], ops[1:], n_t)):
+        nxt = _stack_of(op)
+        if max(oc) < min(order):
+            # The new controls lie below: index l + L·k (k the merged one), already ascending.
+            stack = np.matmul(nxt[None], stack[:, None]).reshape(-1, *stack.shape[1:])
+            order = oc + order
+        else:
+            # Index k + K·l (the new controls more significant).
+            stack = np.matmul(nxt[:, None], stack[None]).reshape(-1, *stack.shape[1:])
+            order = order + oc
+    stack = _sorted_controls(stack, order)
     with _PROGRAMS_LOCK:
         _STACKS[key] = (ops, stack)  # the ops are held so their ids are not reused
         while len(_STACKS) > _PROGRAMS_SIZE:
             _STACKS.popitem(last=False)
     return stack, targets, sorted(controls), length
+
+
+def _control_groups(controls: list[int], ops, n_t: int) -> list[list[int]]:
+    """``controls`` split into each operation's own controls, in order."""
+    out, i = [], 0
+    for op in ops:
+        k = op.num_qubits - n_t
+        out.append(controls[i : i + k])
+        i += k
+    return out
 
 
 def _identity_blocks(stack: np.ndarray) -> np.ndarray | None:

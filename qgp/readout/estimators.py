@@ -109,8 +109,11 @@ def reference_circuit(inv: InversionCircuit, reference_qubits: int | None = None
     for i in range(m - r):
         if (block >> i) & 1:
             qc.x(system[r + i])
-    # copy=False: the instructions are shared with inv.circuit, never modified (large multiplexers).
-    qc.compose(inv.circuit, qubits=qc.qubits[: inv.circuit.num_qubits], inplace=True, copy=False)
+    # inv.circuit's instructions on its own registers, shared, never modified (large multiplexers);
+    # appended as they are: compose's remapping of the identical qubits measured 0.3 ms here.
+    qc.global_phase = inv.circuit.global_phase
+    for inst in inv.circuit.data:
+        qc._append(inst)
     return qc
 
 

@@ -202,6 +202,35 @@ def test_random_circuits_of_supported_gates_equal_aer(ops):
     assert _worst(got, ref) < TOL, f"worst |Δamplitude| {_worst(got, ref):.2e}"
 
 
+@settings(max_examples=40, deadline=None)
+@given(st.permutations([1, 2, 3, 4, 5, 6]), st.lists(st.integers(1, 3), min_size=1, max_size=3), st.integers(0, 2**16))
+def test_consecutive_multiplexers_on_disjoint_controls_merge_into_one_step_equal_to_aer(perm, sizes, seed):
+    """Law: multiplexers on the same target with disjoint controls, in any order of control
+    qubits (the inverse powers come highest bits first), merge into one step of the compiled
+    program (their stack stays below the state's size here) whose state equals Aer's
+    (reference: Aer's statevector)."""
+    from qgp.circuits.encoding import MultiplexerGate
+    from qgp.readout.engine_program import compiled
+
+    rng = np.random.default_rng(seed)
+    qc = QuantumCircuit(9)
+    for q in range(9):
+        qc.h(q)
+    qc.cx(1, 0)  # the target entangled with a control: no pending shortcut
+    used = 0
+    for k in sizes:
+        group = perm[used : used + k]
+        if not group:
+            break
+        used += len(group)
+        qc.append(MultiplexerGate([_random_unitary(rng, 2) for _ in range(2 ** len(group))]), [0, *group])
+    muxes = [st_ for st_ in compiled(qc).steps if st_[0] == "mux"]
+    assert len(muxes) == 1, f"{len(muxes)} multiplexer steps, not one merged"
+    [want] = _aer([qc])
+    got = engine.simulate(qc)["final"]
+    assert _worst(got, want) < TOL, f"worst |Δamplitude| {_worst(got, want):.2e}"
+
+
 @pytest.mark.parametrize("settings_", _cases())
 def test_projected_read_out_equals_aers_postselected_amplitudes(settings_):
     """With ``project`` only the post-selected amplitudes are computed (the closing Hadamards
