@@ -102,11 +102,12 @@ def _program(circuit: QuantumCircuit) -> _Program:
 
 
 def _compile(circuit: QuantumCircuit) -> _Program:
-    bad = sorted({i.name for i in circuit.data} - SUPPORTED)
+    # A list, read many times below: indexing circuit.data builds a new instruction object each time.
+    data = list(circuit.data)
+    bad = sorted({i.name for i in data} - SUPPORTED)
     if bad:
         raise Unsupported(f"the numpy engine does not apply {', '.join(bad)}; run it on Aer")
     index = {q: i for i, q in enumerate(circuit.qubits)}
-    data = circuit.data
     steps: list[tuple] = []
     pos = 0
     while pos < len(data):

@@ -23,7 +23,15 @@ import numpy as np
 
 from qgp.circuits.methods import get_method
 
-__all__ = ["qpe_weights", "clock_phases", "rotation_amplitudes", "filter_response", "model_operator", "clock_expectation"]
+__all__ = [
+    "qpe_weights",
+    "clock_phases",
+    "rotation_amplitudes",
+    "filter_response",
+    "model_operator",
+    "model_operators",
+    "clock_expectation",
+]
 
 
 def qpe_weights(phase, clock_qubits: int) -> np.ndarray:
@@ -63,19 +71,37 @@ def filter_response(inv, eigenvalues) -> np.ndarray:
     For a QSVT circuit (``inv.polynomial`` set, qgp.circuits.qsvt_inversion) the circuit applies
     its polynomial itself: f(λ) = p(λ/α), h(λ) = q(λ/α)² (GSLW 2019, Thm. 17).
     """
+    return _response(inv, np.asarray(eigenvalues, dtype=float), {})
+
+
+def _response(inv, eigenvalues: np.ndarray, weights: dict) -> np.ndarray:
+    """`filter_response`, the phase-estimation weights looked up in ``weights`` (keyed by the phases
+    and the clock size) before they are computed: circuits with one oracle share them."""
     poly = getattr(inv, "polynomial", None)
     if poly is not None:
-        p = poly(np.asarray(eigenvalues, dtype=float) / inv.alpha)
+        p = poly(eigenvalues / inv.alpha)
         return p if inv.rotation == "inverse" else p**2
-    w = qpe_weights(clock_phases(inv, eigenvalues), inv.settings.clock_qubits)
+    phases = np.asarray(clock_phases(inv, eigenvalues), dtype=float)
+    key = (phases.tobytes(), inv.settings.clock_qubits)
+    w = weights.get(key)
+    if w is None:
+        w = weights[key] = qpe_weights(phases, inv.settings.clock_qubits)
     g = rotation_amplitudes(inv)
     return w @ (g if inv.rotation == "inverse" else g**2)
 
 
 def model_operator(inv, A: np.ndarray) -> np.ndarray:
     """V diag(response) Vᵀ: C·Ã⁻¹ for ``inverse``, the flag-probability matrix M for ``inverse_sqrt``."""
+    return model_operators([inv], A)[0]
+
+
+def model_operators(models, A: np.ndarray) -> list[np.ndarray]:
+    """`model_operator` of each circuit or model in ``models`` on one A: one eigendecomposition of
+    A, and the phase-estimation weights computed once for those that share their phases (an
+    inversion pair and the error budget's reference models of an exact oracle)."""
     lam, V = np.linalg.eigh(A)
-    return (V * filter_response(inv, lam)) @ V.T
+    weights: dict = {}
+    return [(V * _response(inv, lam, weights)) @ V.T for inv in models]
 
 
 def clock_expectation(inv, eigenvalues, values) -> np.ndarray:

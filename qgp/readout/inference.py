@@ -37,7 +37,7 @@ from qgp.readout.estimators import (
     variance_probabilities,
 )
 from qgp.progress import progress as progress_message
-from qgp.readout.filter_model import model_operator
+from qgp.readout.filter_model import model_operators
 from qgp.readout.noisy_outcomes import NoisyOutcomes, noisy_outcomes
 from qgp.readout.plan import SimulationPlan, check_clock_qubits, simulation_plan
 from qgp.readout.simulate import default_memory_cap, engine_scope, engines_used
@@ -380,16 +380,26 @@ def _estimates_with_shots(inp: StrategyInputs, out: Outcomes, y_norm: float, k_n
     return exact, (est, int(np.sum(readout.shots - n0 - n1)))
 
 
-def _budget(inp: StrategyInputs, out: Outcomes, exact_gp, quantum, sampled, y_norm, k_norms, noisy=None) -> dict:
+def _models(inp: StrategyInputs, out: Outcomes) -> tuple[tuple, list[np.ndarray]]:
+    """The error budget's two models and the closed-form operators: theirs, then the circuits' own
+    where the method has an exact closed-form model and operators were simulated (one
+    eigendecomposition of A for all, `model_operators`)."""
+    algorithm = algorithm_of(inp.circuit)
+    models = algorithm.budget_models(inp.circuit, inp.bounds, inp.inverse, inp.inverse_sqrt)
+    own = algorithm.closed_form_model(inp.circuit) and out.operators is not None
+    return models, model_operators([*models, *((inp.inverse, inp.inverse_sqrt) if own else ())], inp.A)
+
+
+def _budget(inp: StrategyInputs, out: Outcomes, models, exact_gp, quantum, sampled, y_norm, k_norms, noisy=None) -> dict:
     """Error budget: exact GP → the reference oracle's phase estimation and filtering (closed-form
     model, qgp.circuits.methods.BUDGET_REFERENCE; needs only the clock grid's constants, not a
-    circuit) → the chosen oracle → shots."""
-    problem, A = inp.problem, inp.A
+    circuit) → the chosen oracle → shots. ``models``: `_models`."""
+    problem = inp.problem
     algorithm = algorithm_of(inp.circuit)
-    model_inv, model_sqrt = algorithm.budget_models(inp.circuit, inp.bounds, inp.inverse, inp.inverse_sqrt)
-    vm = model_operator(model_inv, A) @ inp.yhat
+    (model_inv, model_sqrt), operators = models
+    vm = operators[0] @ inp.yhat
     mp0, mp1 = hadamard_probabilities(vm, inp.khat)
-    mpf = variance_probabilities(model_operator(model_sqrt, A), inp.khat)
+    mpf = variance_probabilities(operators[1], inp.khat)
     mean_model, var_model, _ = _estimates(
         problem, mp0, mp1, mpf, out.hadamard_kk, y_norm, k_norms, model_inv, model_sqrt
     )
@@ -443,13 +453,13 @@ def _final(mean_q, var_q, est: ShotEstimates | None, noisy_answers):
     return est.mean, est.variance, np.hypot(est.mean_se, mean_tse), np.hypot(est.variance_se, var_tse)
 
 
-def _model_difference(inp: StrategyInputs, out: Outcomes) -> float | None:
+def _model_difference(models, out: Outcomes) -> float | None:
     """Largest difference between the closed-form model and the simulated operators, where the
-    method has an exact closed-form model and operators were simulated."""
-    if not algorithm_of(inp.circuit).closed_form_model(inp.circuit) or out.operators is None:
+    method has an exact closed-form model and operators were simulated (``models``: `_models`)."""
+    operators = models[1]
+    if len(operators) < 4:
         return None
-    own_B = model_operator(inp.inverse, inp.A)
-    own_M = model_operator(inp.inverse_sqrt, inp.A)
+    own_B, own_M = operators[2:]
     return max(max_abs(own_B - out.operators.B), max_abs(own_M - out.operators.M))
 
 
@@ -529,7 +539,8 @@ def infer(
         timings["gate_noise"] = time.perf_counter() - t_noise
         noisy_answers = _noisy_answers(inp, noisy, y_norm, k_norms)
         sampled = _noisy_shots(inp, noisy, say)
-    budget = _budget(inp, out, (mean_exact, var_exact), (mean_q, var_q), sampled, y_norm, k_norms, noisy_answers)
+    models = _models(inp, out)
+    budget = _budget(inp, out, models, (mean_exact, var_exact), (mean_q, var_q), sampled, y_norm, k_norms, noisy_answers)
     needed = shots_needed(problem, out.p0, out.p1, out.p_flag, y_norm, k_norms, inv, inv_sqrt, mean_exact, var_exact)
     est, failures = sampled if sampled is not None else (None, None)
     final_mean, final_var, mean_se, var_se = _final(mean_q, var_q, est, noisy_answers)
@@ -554,7 +565,7 @@ def infer(
         post_selection_failures=failures,
         error_budget=budget,
         shots_needed=needed,
-        filter_model_max_abs_difference=_model_difference(inp, out),
+        filter_model_max_abs_difference=_model_difference(models, out),
         operators=out.operators,
         engine=engines_used(used),
         strategy=plan.strategy,

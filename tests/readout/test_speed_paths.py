@@ -342,6 +342,27 @@ def test_exact_oracle_model_needs_no_circuit(settings, rotation):
     assert np.array_equal(model_operator(model, a), model_operator(built, a))
 
 
+def test_model_operators_share_work_without_mixing_models():
+    # One eigendecomposition and the weights shared between models with the same phases: each
+    # operator is still the one model_operator gives alone — across an exact pair, a walk circuit
+    # (other phases, other clock grid) and a QSVT circuit (its polynomial).
+    from qgp.readout.filter_model import model_operators
+
+    a = _spd(4, 23)
+    bounds = _bounds(a)
+    exact = CircuitSettings(clock_qubits=4, evolution="exact")
+    models = [
+        build_inversion(a, exact, "inverse", bounds, form="simulation"),
+        build_inversion(a, exact, "inverse_sqrt", bounds, form="simulation"),
+        build_inversion(a, CircuitSettings(clock_qubits=5), "inverse", bounds, form="simulation"),
+        build_inversion(a, CircuitSettings(method="qsvt", clock_qubits=0, degree=21), "inverse_sqrt", bounds, form="simulation"),
+    ]
+    together = model_operators(models, a)
+    for model, got in zip(models, together):
+        alone = model_operator(model, a)
+        assert np.max(np.abs(got - alone)) < 1e-14, (model.settings.evolution, model.rotation)
+
+
 # -- the benchmark command -------------------------------------------------------------------------
 
 
