@@ -95,7 +95,10 @@ class MultiplexerGate(Gate):
         self.definition = qc
 
     def inverse(self, annotated: bool = False):
-        return MultiplexerGate([m.conj().T for m in self.params], label=self.label)
+        """Σ_k |k⟩⟨k| ⊗ U_k†; ``adjoint_of`` names this gate (a simulator may reuse its work)."""
+        gate = MultiplexerGate(np.conjugate(self.stack.transpose(0, 2, 1), out=np.empty_like(self.stack)), label=self.label)
+        gate.adjoint_of = self
+        return gate
 
 
 def _num_qubits_of(length: int, what: str) -> int:

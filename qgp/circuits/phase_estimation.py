@@ -289,6 +289,15 @@ def _power_multiplexers(oracle: PhaseOracle, inverse: bool = False) -> list[tupl
     key = ("multiplexers", inverse)
     if key in oracle._built:
         return oracle._built[key]
+    if inverse:
+        # Each the forward one's inverse (its adjoint_of set: a simulator may reuse its merge).
+        out = []
+        for bits, gate in _power_multiplexers(oracle):
+            dg = gate.inverse()
+            dg.label = f"{gate.label}_dg"
+            out.append((bits, dg))
+        oracle._built[key] = out
+        return out
     squares = oracle.power_matrices
     dim = squares[0].shape[0]
     c = oracle.clock_qubits
@@ -300,10 +309,7 @@ def _power_multiplexers(oracle: PhaseOracle, inverse: bool = False) -> list[tupl
         stack = np.eye(dim, dtype=complex)[None]
         for j in bits:
             stack = np.concatenate((stack, stack @ squares[j]))
-        if inverse:
-            stack = np.ascontiguousarray(stack.conj().transpose(0, 2, 1))
-        label = f"c-V^k[{j0}:{bits[-1] + 1}]" + ("_dg" if inverse else "")
-        out.append((bits, MultiplexerGate(list(stack), label=label)))
+        out.append((bits, MultiplexerGate(stack, label=f"c-V^k[{j0}:{bits[-1] + 1}]")))
     oracle._built[key] = out
     return out
 

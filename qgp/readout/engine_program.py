@@ -282,25 +282,47 @@ def _merged_multiplexers(data, pos: int, index: dict) -> tuple[np.ndarray, list[
         if hit is not None:
             _STACKS.move_to_end(key)
             return hit[1], targets, sorted(controls), length
-    stack = _stack_of(ops[0])
-    n_first = len(qs) - n_t
-    order = controls[:n_first]  # the merged stack's controls, least significant first
-    for op, oc in zip(ops[1:], _control_groups(controls[n_first:], ops[1:], n_t)):
-        nxt = _stack_of(op)
-        if max(oc) < min(order):
-            # The new controls lie below: index l + L·k (k the merged one), already ascending.
-            stack = np.matmul(nxt[None], stack[:, None]).reshape(-1, *stack.shape[1:])
-            order = oc + order
-        else:
-            # Index k + K·l (the new controls more significant).
-            stack = np.matmul(nxt[:, None], stack[None]).reshape(-1, *stack.shape[1:])
-            order = order + oc
-    stack = _sorted_controls(stack, order)
+    stack = _adjoint_of_merged(ops, targets, controls)
+    if stack is None:
+        stack = _stack_of(ops[0])
+        n_first = len(qs) - n_t
+        order = controls[:n_first]  # the merged stack's controls, least significant first
+        for op, oc in zip(ops[1:], _control_groups(controls[n_first:], ops[1:], n_t)):
+            nxt = _stack_of(op)
+            if max(oc) < min(order):
+                # The new controls lie below: index l + L·k (k the merged one), already ascending.
+                stack = np.matmul(nxt[None], stack[:, None]).reshape(-1, *stack.shape[1:])
+                order = oc + order
+            else:
+                # Index k + K·l (the new controls more significant).
+                stack = np.matmul(nxt[:, None], stack[None]).reshape(-1, *stack.shape[1:])
+                order = order + oc
+        stack = _sorted_controls(stack, order)
     with _PROGRAMS_LOCK:
-        _STACKS[key] = (ops, stack)  # the ops are held so their ids are not reused
+        # The ops are held so their ids are not reused; targets and controls for `_adjoint_of_merged`.
+        _STACKS[key] = (ops, stack, targets, controls)
         while len(_STACKS) > _PROGRAMS_SIZE:
             _STACKS.popitem(last=False)
     return stack, targets, sorted(controls), length
+
+
+def _adjoint_of_merged(ops, targets: list[int], controls: list[int]) -> np.ndarray | None:
+    """The merged stack of ``ops`` as the adjoint of one merged before, when each op is the adjoint
+    of one of those (``adjoint_of``, set by `MultiplexerGate.inverse`) on the same qubits, in reverse
+    order — an inverse phase estimation's powers after the forward ones: (V_l·U_k)† = U_k†·V_l†,
+    a conjugate transpose instead of 2^c block products. None when there is no such merge."""
+    forward = [getattr(op, "adjoint_of", None) for op in reversed(ops)]
+    if any(f is None for f in forward):
+        return None
+    n_t = len(targets)
+    groups = _control_groups(controls, ops, n_t)
+    fwd_controls = [q for g in reversed(groups) for q in g]
+    key = (tuple(id(f) for f in forward), tuple(sorted(range(len(fwd_controls)), key=fwd_controls.__getitem__)))
+    with _PROGRAMS_LOCK:
+        hit = _STACKS.get(key)
+    if hit is None or hit[2] != targets or hit[3] != fwd_controls or any(a is not b for a, b in zip(hit[0], forward)):
+        return None
+    return np.conjugate(hit[1].transpose(0, 2, 1), out=np.empty_like(hit[1]))  # one new array, no temporary
 
 
 def _control_groups(controls: list[int], ops, n_t: int) -> list[list[int]]:

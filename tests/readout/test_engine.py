@@ -231,6 +231,51 @@ def test_consecutive_multiplexers_on_disjoint_controls_merge_into_one_step_equal
     assert _worst(got, want) < TOL, f"worst |Δamplitude| {_worst(got, want):.2e}"
 
 
+@settings(max_examples=25, deadline=None)
+@given(st.booleans(), st.integers(0, 2**16))
+def test_inverse_multiplexers_merge_as_the_adjoint_of_the_forward_merge_equal_to_aer(same_qubits, seed):
+    """Law: the inverses of merged multiplexers, in reverse order on the same qubits (an inverse
+    phase estimation's powers), merge as the adjoint of the forward merge — the same stack the
+    block products give — and on other qubits the products are taken; the state equals Aer's
+    (reference: Aer's statevector)."""
+    from qgp.circuits.encoding import MultiplexerGate
+    from qgp.readout import engine_program
+
+    rng = np.random.default_rng(seed)
+    qc = QuantumCircuit(8)
+    for q in range(8):
+        qc.h(q)
+    qc.cx(2, 0)
+    a = MultiplexerGate([_random_unitary(rng, 2) for _ in range(8)])
+    b = MultiplexerGate([_random_unitary(rng, 2) for _ in range(4)])
+    qc.append(a, [0, 2, 3, 4])
+    qc.append(b, [0, 5, 6])
+    qc.ry(0.3, 1)
+    qc.append(b.inverse(), [0, 5, 6] if same_qubits else [0, 6, 5])
+    qc.append(a.inverse(), [0, 2, 3, 4])
+    adjoints = []
+    original = engine_program._adjoint_of_merged
+    engine_program._adjoint_of_merged = lambda *args: (adjoints.append(r := original(*args)), r)[1]
+    try:
+        engine_program._STACKS.clear()
+        steps = [st_ for st_ in engine_program._compile(qc).steps if st_[0] == "mux"]
+    finally:
+        engine_program._adjoint_of_merged = original
+    assert len(steps) == 2
+    assert (adjoints[-1] is not None) == same_qubits
+    engine_program._STACKS.clear()
+    engine_program._adjoint_of_merged = lambda *args: None
+    try:
+        products = [st_ for st_ in engine_program._compile(qc).steps if st_[0] == "mux"]
+    finally:
+        engine_program._adjoint_of_merged = original
+    resid = np.max(np.abs(steps[1][1] - products[1][1]))
+    assert resid < 1e-13, f"worst |adjoint − product| entry {resid:.2e}"
+    [want] = _aer([qc])
+    got = engine.simulate(qc)["final"]
+    assert _worst(got, want) < TOL, f"worst |Δamplitude| {_worst(got, want):.2e}"
+
+
 @pytest.mark.parametrize("settings_", _cases())
 def test_projected_read_out_equals_aers_postselected_amplitudes(settings_):
     """With ``project`` only the post-selected amplitudes are computed (the closing Hadamards
