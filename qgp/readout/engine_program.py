@@ -108,6 +108,7 @@ def _compile(circuit: QuantumCircuit) -> _Program:
     if bad:
         raise Unsupported(f"the numpy engine does not apply {', '.join(bad)}; run it on Aer")
     index = {q: i for i, q in enumerate(circuit.qubits)}
+    names = [inst.name for inst in data]
     steps: list[tuple] = []
     pos = 0
     while pos < len(data):
@@ -117,7 +118,7 @@ def _compile(circuit: QuantumCircuit) -> _Program:
         name = inst.name
         qs = [index[q] for q in inst.qubits]
         if name in ("h", "swap"):
-            match = _match_qft(data, pos, index)
+            match = _match_qft(data, pos, index, names)
             if match is not None:
                 length, qubits, inverse = match
                 steps.append(("fft", qubits, inverse))
@@ -129,7 +130,7 @@ def _compile(circuit: QuantumCircuit) -> _Program:
             pos += length
             continue
         if len(qs) == 1 and name not in _DIAGONAL_NAMES and name not in ("x", "save_statevector", "barrier"):
-            length = _one_qubit_run(data, pos, index)
+            length = _one_qubit_run(data, pos, index, names)
             per_qubit: dict[int, np.ndarray] = {}
             for layer_inst in data[pos : pos + length]:
                 q = index[layer_inst.qubits[0]]
@@ -203,20 +204,29 @@ def _fuse_conditioned(steps: list[tuple]) -> list[tuple]:
     return out
 
 
-def _match_qft(data, pos: int, index: dict) -> tuple[int, list[int], bool] | None:
+def _match_qft(data, pos: int, index: dict, names: list[str] | None = None) -> tuple[int, list[int], bool] | None:
     """(length, qubits, inverse?) when the instructions from ``pos`` are qgp's written-out inverse
-    QFT or QFT on some qubits (one H on each, with the controlled phases and swaps between)."""
+    QFT or QFT on some qubits (one H on each, with the controlled phases and swaps between).
+    ``names``: the instructions' names, when the caller has them listed."""
     # The inverse QFT starts with the swaps (qiskit's synthesis) or an H; find the register from
     # the run of h/cp/swap instructions and try each width it could have.
+    if names is None:
+        names = [inst.name for inst in data[pos:]]
+        offset = pos
+    else:
+        offset = 0
     run_end = pos
+    has_cp = False
+    while run_end - offset < len(names) and names[run_end - offset] in ("h", "cp", "swap"):
+        has_cp = has_cp or names[run_end - offset] == "cp"
+        run_end += 1
+    if run_end - pos < 3 or not has_cp:
+        return None  # every QFT on two or more qubits has controlled phases
     qubits: list[int] = []
-    while run_end < len(data) and data[run_end].name in ("h", "cp", "swap"):
-        for q in data[run_end].qubits:
+    for i in range(pos, run_end):
+        for q in data[i].qubits:
             if index[q] not in qubits:
                 qubits.append(index[q])
-        run_end += 1
-    if run_end - pos < 3 or not any(data[i].name == "cp" for i in range(pos, run_end)):
-        return None  # every QFT on two or more qubits has controlled phases
     lo = min(qubits)
     for c in range(len(qubits), 1, -1):
         reg = list(range(lo, lo + c))
@@ -362,15 +372,15 @@ def _sorted_controls(stack: np.ndarray, controls: list[int]) -> np.ndarray:
     return stack
 
 
-def _one_qubit_run(data, pos: int, index: dict) -> int:
+def _one_qubit_run(data, pos: int, index: dict, names: list[str]) -> int:
     """How many instructions from ``pos`` are one-qubit gates to fuse (stopping at a QFT)."""
     end = pos
     while end < len(data):
         inst = data[end]
-        name = inst.name
+        name = names[end]
         if len(inst.qubits) != 1 or name in _DIAGONAL_NAMES or name in ("x", "save_statevector", "barrier"):
             break
-        if end > pos and name == "h" and _match_qft(data, end, index) is not None:
+        if end > pos and name == "h" and _match_qft(data, end, index, names) is not None:
             break
         end += 1
     return end - pos
