@@ -223,10 +223,13 @@ def test_walk_simulation_form_matches_gate_form():
 # Exact and Trotter oracles
 
 
-def test_exact_oracle_powers():
+@pytest.mark.parametrize("form", ["gate", "simulation"])
+def test_exact_oracle_powers(form):
+    # The simulation form builds its gates only when read (they are not in its circuits).
     a = _rbf_kernel_matrix(4, 0.3, 0.1, 3)
     t = 0.9
-    oracle = exact_oracle(a, 4, t)
+    oracle = exact_oracle(a, 4, t, form)
+    assert len(oracle.powers) == 4
     for j, gate in enumerate(oracle.powers):
         u = Operator(gate).data
         want = scipy.linalg.expm(1j * a * t * 2**j)  # e^{+iAt·2^j}: the sign matters

@@ -24,6 +24,7 @@ from qgp.circuits.phase_estimation import (
     PhaseOracle,
     _check_clock,
     _check_form,
+    _LazyPowers,
     _squared_powers,
     _squares,
     derived_evolution_time,
@@ -105,7 +106,7 @@ def exact_oracle(A, clock_qubits: int, evolution_time: float, form: Form = "gate
         evolution_time=float(evolution_time),
         alpha=None,
         block_encoding=None,
-        powers=_squared_powers(squares, clock_qubits, "c-exp(iAt)"),
+        powers=(_LazyPowers if form == "simulation" else _squared_powers)(squares, clock_qubits, "c-exp(iAt)"),
         n_calls=2**clock_qubits - 1,
         power_matrices=squares if form == "simulation" else None,
     )
