@@ -44,11 +44,17 @@ _X = np.array([[0.0, 1.0], [1.0, 0.0]], dtype=complex)
 _POOL: dict[int, list[np.ndarray]] = {}
 
 
+#: Work buffers of at most this many bytes (the pair) outlive the outermost `buffer_pool`, for the
+#: next inference: a pair of ≤ 20-qubit states (cold 17-qubit inferences measured ~0.3 ms faster
+#: each with the pair kept); a larger pair is never held between runs.
+_KEEP_BYTES = 1 << 25
+
+
 def _take_buffers(n: int) -> list[np.ndarray]:
     """Two work buffers of 2^n amplitudes, reused from an earlier run of the same width when one
     left them (their pages are then already mapped; a first touch of fresh memory measured here
     at ~0.3 GB/s, over ten times a pass). `qgp.readout.simulate.engine_scope` frees them when its
-    outermost scope ends (`release_buffers`)."""
+    outermost scope ends, unless they are small (`_KEEP_BYTES`; `release_buffers` frees those)."""
     with _POOL_LOCK:
         pair = _POOL.pop(n, None)
         _POOL.clear()  # at most one pair is kept
@@ -74,7 +80,8 @@ _POOL_DEPTH = 0
 @contextlib.contextmanager
 def buffer_pool() -> Iterator[None]:
     """Inside, runs of one width reuse two work buffers; they are freed when the outermost
-    ``buffer_pool`` ends (outside any, every run allocates its own)."""
+    ``buffer_pool`` ends unless they are small (`_KEEP_BYTES`); outside any, every run allocates
+    its own."""
     global _POOL_DEPTH
     with _POOL_LOCK:
         _POOL_DEPTH += 1
@@ -84,7 +91,8 @@ def buffer_pool() -> Iterator[None]:
         with _POOL_LOCK:
             _POOL_DEPTH -= 1
             if _POOL_DEPTH == 0:
-                _POOL.clear()
+                for n in [n for n in _POOL if 2 * 16 * 2**n > _KEEP_BYTES]:
+                    del _POOL[n]
 
 
 class _State:

@@ -80,12 +80,14 @@ def _floor(stages: list[dict], rates: dict) -> float:
     )
 
 
-def _best(f, repeats: int, budget: float = 0.0) -> float:
+def _best(f, repeats: int, budget: float = 0.0, setup=None) -> float:
     """Median seconds of ``f()`` over ``repeats`` calls, or over as many as fill ``budget`` seconds
     when that is more (a 2 ms run's median over 15 calls moved ±20 % between runs here); the
-    minimum when fewer than 3 calls."""
+    minimum when fewer than 3 calls. ``setup()`` runs untimed before each call."""
     ts: list[float] = []
     while len(ts) < repeats or (sum(ts) < budget and len(ts) < 1000):
+        if setup is not None:
+            setup()
         t0 = time.perf_counter()
         f()
         ts.append(time.perf_counter() - t0)
@@ -145,7 +147,8 @@ def floor_case(kind: str, clock_qubits: int, *, repeats: int = 5, aer_repeats: i
     # Cold: every run in its own scope, so its two work buffers are fresh memory (the kernel maps
     # each page on first touch: ~0.3 GB/s on this VM, measured). Warm: runs of one width inside one
     # scope reuse the buffers, as the runs of one inference do (per-point and hybrid circuits).
-    t_cold = _best(lambda: run("numpy"), max(1, repeats // 3))
+    # Small work buffers outlive a scope (qgp.readout.engine._KEEP_BYTES): freed before each cold run.
+    t_cold = _best(lambda: run("numpy"), max(1, repeats // 3), setup=engine.release_buffers)
     from qgp.readout.engine import buffer_pool
 
     with buffer_pool():

@@ -568,3 +568,24 @@ def test_a_large_clocks_iqft_rotation_qft_run_as_one_transform_equal_aer():
     [ref] = _aer([prep.circuit])
     worst = _worst(got, project_statevector(ref, post))
     assert worst < TOL, f"worst |Δamplitude| {worst:.2e}"
+
+
+def test_only_small_work_buffers_outlive_their_scope(monkeypatch):
+    # A pair of ≤ _KEEP_BYTES is kept for the next inference (no fresh pages); a larger pair is
+    # freed when the outermost scope ends, and release_buffers frees the kept one (common practice:
+    # a cache that never holds more than its stated bound).
+    from qgp.readout.simulate import engine_scope
+
+    qc = QuantumCircuit(6)
+    qc.h(0)
+    qc.cx(0, 5)
+    engine.release_buffers()
+    with engine_scope("numpy"):
+        engine.simulate(qc)
+    assert 6 in engine._POOL, "a 6-qubit pair (2 KiB) was not kept"
+    engine.release_buffers()
+    assert not engine._POOL
+    monkeypatch.setattr(engine, "_KEEP_BYTES", 1024)
+    with engine_scope("numpy"):
+        engine.simulate(qc)
+    assert not engine._POOL, "a pair over the bound outlived its scope"
