@@ -80,7 +80,14 @@ def _all_off():
     stack.enter_context(_patched(State, "_conditioned_expand", _unfused_rotation(State._conditioned_expand)))
     stack.enter_context(_patched(engine, "_pocketfft", None))
     stack.enter_context(_patched(State, "fft_diagonal_fft", lambda self, *a: False))
+    stack.enter_context(_patched(State, "_copied", lambda self, *a: False))
+    stack.enter_context(_patched(engine, "_laid_out", _fresh_laid_out))
     return stack
+
+
+def _fresh_laid_out(stack, axes, into=None):
+    """Before: the stack copied into the product's axis order on every run (nothing kept)."""
+    return np.ascontiguousarray(stack.transpose(axes))
 
 
 FUSIONS = {
@@ -89,6 +96,11 @@ FUSIONS = {
         "clock stored, then the multiplexer on the whole state",
         "c_k·U_k·ψ written from the small stored state (and, above a prepared system, the clock after it: contiguous FFTs, which the four-step transform needs)",
         lambda: _patched(State, "_from_pending", _unfused_pending),
+    ),
+    "controlled powers on a reference register's s·I as a copy": (
+        "the product U_k·ψ",
+        "s·U_k: the stack copied (ψ = s·I, the Choi state Σ_r |r⟩|r⟩)",
+        lambda: _patched(State, "_copied", lambda self, *a: False),
     ),
     "inverse powers contracted with the read-out rows": (
         "multiplexer(s) applied to the whole state, then read",
@@ -104,6 +116,11 @@ FUSIONS = {
         "two FFTs and the rotation's pass",
         "three passes, the middle one in cache (from 12 clock qubits, with no saved state between)",
         lambda: _patched(State, "fft_diagonal_fft", lambda self, *a: False),
+    ),
+    "stacks kept in the order a product reads them": (
+        "a strided copy of the stack on every run",
+        "the copy kept for the next run of the circuit (the last four, per thread)",
+        lambda: _patched(engine, "_laid_out", _fresh_laid_out),
     ),
     "FFT in place": ("scipy.fft into a new array", "pocketfft over the state", lambda: _patched(engine, "_pocketfft", None)),
 }

@@ -879,7 +879,7 @@ def _laid_out(stack: np.ndarray, axes: tuple[int, ...], into: np.ndarray | None 
     if hit is not None and hit[0] is stack:
         kept.move_to_end(key)
         return hit[1]
-    memory = kept.popitem(last=False)[1][2] if len(kept) >= _LAID_OUT_ENTRIES else None
+    memory = kept.popitem(last=False)[1][2] if kept and len(kept) >= _LAID_OUT_ENTRIES else None
     if memory is None or memory.size < view.size or memory.dtype != stack.dtype:
         memory = np.empty(view.size, dtype=stack.dtype)
     laid = memory[: view.size].reshape(view.shape)
