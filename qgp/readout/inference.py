@@ -358,13 +358,24 @@ def _estimates(problem, p0, p1, pf, pf_had, y_norm, k_norms, inv, inv_sqrt):
     return mean, problem.k_star_star - quad, problem.k_star_star - quad_had
 
 
-def _guard(problem: Problem, circuit: CircuitSettings, readout: ReadoutSettings, cap: int) -> SimulationPlan:
+def _guard(problem: Problem, circuit: CircuitSettings, readout: ReadoutSettings) -> tuple[SimulationPlan, int]:
     """The memory guard, before any work that grows with n (the LCU's Pauli decomposition included):
-    every simulation the chosen strategy makes, from the register sizes (qgp.readout.plan)."""
+    every simulation the chosen strategy makes, from the register sizes (qgp.readout.plan), against
+    ``[readout] memory_cap`` or the default cap. That is read afresh when a run needs 1/64 of it or
+    more; smaller runs may use a reading under a second old (`default_memory_cap`). Returns the
+    plan and the cap."""
     check_clock_qubits(circuit)
-    plan = simulation_plan(problem, circuit, readout, cap=cap)
+    if readout.memory_cap_bytes is not None:
+        cap = readout.memory_cap_bytes
+        plan = simulation_plan(problem, circuit, readout, cap=cap)
+    else:
+        cap = default_memory_cap(max_age=1.0)
+        plan = simulation_plan(problem, circuit, readout, cap=cap)
+        if 64 * max((r.bytes for r in plan.runs()), default=0) > cap:
+            cap = default_memory_cap()
+            plan = simulation_plan(problem, circuit, readout, cap=cap)
     plan.require()
-    return plan
+    return plan, cap
 
 
 def _estimates_with_shots(inp: StrategyInputs, out: Outcomes, y_norm: float, k_norms: np.ndarray, say: Progress):
@@ -497,8 +508,7 @@ def infer(
     say = progress or (lambda msg: None)
     t_start = time.perf_counter()
     timings: dict[str, float] = {}
-    cap = readout.memory_cap_bytes if readout.memory_cap_bytes is not None else default_memory_cap()
-    plan = _guard(problem, circuit, readout, cap)
+    plan, cap = _guard(problem, circuit, readout)
 
     A = problem.A_padded
     bounds = eigenvalue_bounds(A, problem.noise_variance)

@@ -329,3 +329,34 @@ def test_available_memory_respects_the_address_space_limit():
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout.split()
     avail, room = int(out[0]), int(out[1])
     assert avail <= 2**30 and abs(avail - room) < 2**24, (avail, room)
+
+
+def test_a_recent_memory_reading_serves_small_runs_only(monkeypatch):
+    # default_memory_cap(max_age=…) returns a reading under max_age old by the same functions;
+    # another reader is never served an old reading, and infer's guard reads again for a run that
+    # needs 1/64 of the cap or more (common practice: a cache keyed by its inputs, bounded in age).
+    import qgp.memory
+    from qgp.readout.inference import _guard
+
+    calls = []
+    real = qgp.memory.available_memory_bytes
+
+    def counting():
+        calls.append(1)
+        return real()
+
+    monkeypatch.setattr(qgp.memory, "available_memory_bytes", counting)
+    first = qgp.memory.default_memory_cap()
+    assert qgp.memory.default_memory_cap(max_age=60.0) == first and len(calls) == 1
+    qgp.memory.default_memory_cap()
+    assert len(calls) == 2, "max_age = 0 must read again"
+    readers = (qgp.memory.default_memory_cap, qgp.memory.available_memory_bytes)
+    problem, circuit = _problem(), CircuitSettings(clock_qubits=8, evolution="exact")
+    need = max(r.bytes for r in simulation_plan(problem, circuit, ReadoutSettings(), cap=first).runs())
+    for stale, reads in ((128 * need, 0), (32 * need, 1)):
+        monkeypatch.setattr(qgp.memory, "_LAST_CAP", (time.monotonic(), stale, readers))
+        before = len(calls)
+        _guard(problem, circuit, ReadoutSettings())
+        assert len(calls) - before == reads, (stale / need, len(calls) - before)
+    monkeypatch.setattr(qgp.memory, "available_memory_bytes", lambda: 1 << 20)
+    assert qgp.memory.default_memory_cap(max_age=60.0) == 1 << 19, "a reading by another reader was reused"
