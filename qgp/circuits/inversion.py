@@ -386,7 +386,8 @@ def build_inversion(
         regs.append(block)
     if prefix is not None:
         # The prefix's registers and instructions as they are (immutable; shared as compose's
-        # copy=False shares operations): measured 0.05 ms against ~0.8 ms to build them again.
+        # copy=False shares operations): the inverse_sqrt build at n = 16, c = 8 measured
+        # 0.72–0.84 ms building its phase estimation again, 0.33–0.38 ms with the prefix.
         qc = QuantumCircuit(*prefix.circuit.qregs, name=f"inversion-{rotation}", global_phase=prefix.prefix_phase)
         named = {r.name: r for r in qc.qregs}
         system, clock, flag, block = named[SYSTEM], named[CLOCK], named[FLAG], named.get(BLOCK, [])
