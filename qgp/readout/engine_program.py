@@ -159,7 +159,7 @@ def _fuse_conditioned(steps: list[tuple]) -> list[tuple]:
     """Runs of one-qubit layers on one qubit t and diagonals (on t and other qubits C) become one
     multiplexer on t controlled by C: every step of the run is block-diagonal in C, so the run is
     Σ_k |k⟩⟨k|_C ⊗ U_k with U_k the product of its 2 × 2 blocks (the eigenvalue-conditioned
-    rotation, written as S†·H·diag·H·S, is such a run: one pass instead of five)."""
+    rotation written as S†·H·diag·H·S is such a run: one pass instead of five)."""
     out: list[tuple] = []
     i = 0
     while i < len(steps):
