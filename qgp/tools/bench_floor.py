@@ -23,7 +23,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-__all__ = ["machine_rates", "floor_case", "large_n", "classical_times"]
+__all__ = ["machine_rates", "floor_case", "large_n", "classical_times", "exact_gp_call", "sample_loops", "per_call_seconds"]
 
 Progress = Callable[[str], None]
 
@@ -212,11 +212,43 @@ def large_n(n_train: int, n_test: int, clock_qubits: int, say: Progress = print)
     }
 
 
+def exact_gp_call(problem) -> Callable[[], object]:
+    """The exact GP on ``problem`` with kernel evaluation (qgp.classical.gp: condition + predict)."""
+    from qgp.classical.gp import condition
+
+    def call():
+        return condition(problem.X, problem.y, problem.kernel, problem.noise_variance, center=problem.center).predict(
+            problem.X_test
+        )
+
+    return call
+
+
+def sample_loops(f: Callable[[], object]) -> int:
+    """How many calls of a sub-millisecond ``f`` one sample times: enough to last ≥ 20 ms (timer
+    resolution and call overhead then stay below 1 %)."""
+    f()
+    loops = 1
+    while True:
+        t0 = time.perf_counter()
+        for _ in range(loops):
+            f()
+        if time.perf_counter() - t0 >= 0.02:
+            return loops
+        loops *= 2
+
+
+def per_call_seconds(f: Callable[[], object], loops: int) -> float:
+    """One sample: seconds per call over ``loops`` calls of ``f``."""
+    t0 = time.perf_counter()
+    for _ in range(loops):
+        f()
+    return (time.perf_counter() - t0) / loops
+
+
 def classical_times(problem, repeats: int) -> dict:
     """Median time of the exact GP from the same matrices (and of qgp.classical.gp with kernel evaluation)."""
     import scipy.linalg
-
-    from qgp.classical.gp import condition
 
     A = np.asarray(problem.A)
     ks = np.asarray(problem.k_star)
@@ -230,30 +262,11 @@ def classical_times(problem, repeats: int) -> dict:
         v = scipy.linalg.solve_triangular(L, ks, lower=True, check_finite=False)
         return ks.T @ alpha + offset, kss - np.einsum("ij,ij->j", v, v)
 
-    def with_kernels():
-        return condition(problem.X, problem.y, problem.kernel, problem.noise_variance, center=problem.center).predict(
-            problem.X_test
-        )
+    with_kernels = exact_gp_call(problem)
 
     def median_time(f):
-        # Sub-millisecond calls: each sample times enough calls to last ≥ 20 ms (timer resolution
-        # and call overhead then stay below 1%), the median of the samples per call.
-        f()
-        loops = 1
-        while True:
-            t0 = time.perf_counter()
-            for _ in range(loops):
-                f()
-            if time.perf_counter() - t0 >= 0.02:
-                break
-            loops *= 2
-        ts = []
-        for _ in range(max(5, repeats // 40)):
-            t0 = time.perf_counter()
-            for _ in range(loops):
-                f()
-            ts.append((time.perf_counter() - t0) / loops)
-        return statistics.median(ts)
+        loops = sample_loops(f)
+        return statistics.median(per_call_seconds(f, loops) for _ in range(max(5, repeats // 40)))
 
     out = {}
     for name, f in (("cholesky", cholesky), ("qgp_gp", with_kernels)):
