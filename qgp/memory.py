@@ -128,13 +128,23 @@ def default_memory_cap(*, max_age: float = 0.0) -> int:
     /proc and the cgroup files measured 0.1–0.3 ms, as much as simulating a small circuit); for
     needs far below the cap only — callers with large runs read again."""
     global _LAST_CAP
-    readers = (default_memory_cap, available_memory_bytes)
-    seen_at, seen, seen_readers = _LAST_CAP
-    if max_age > 0 and seen_readers == readers and time.monotonic() - seen_at < max_age:
+    seen = _recent_cap(max_age) if max_age > 0 else None
+    if seen is not None:
         return seen
     cap = available_memory_bytes() // 2
-    _LAST_CAP = (time.monotonic(), cap, readers)
+    _LAST_CAP = (time.monotonic(), cap, _readers())
     return cap
+
+
+def _readers() -> tuple:
+    """The functions a default-cap reading came from (a reading by replaced ones is never reused)."""
+    return (default_memory_cap, available_memory_bytes)
+
+
+def _recent_cap(max_age: float) -> int | None:
+    """The last default-cap reading when it is under ``max_age`` seconds old and by the same functions."""
+    seen_at, seen, seen_readers = _LAST_CAP
+    return seen if seen_readers == _readers() and time.monotonic() - seen_at < max_age else None
 
 
 def require_memory(n_bytes: int, what: str, cap: int | None = None) -> None:
@@ -143,9 +153,8 @@ def require_memory(n_bytes: int, what: str, cap: int | None = None) -> None:
     and the cgroup files costs ~0.1 ms, as much as simulating a small circuit. Larger needs read
     the memory again."""
     if cap is None:
-        readers = (default_memory_cap, available_memory_bytes)
-        seen_at, seen, seen_readers = _LAST_CAP
-        if seen_readers == readers and 64 * n_bytes <= seen and time.monotonic() - seen_at < 1.0:
+        seen = _recent_cap(1.0)
+        if seen is not None and 64 * n_bytes <= seen:
             return
         cap = default_memory_cap()
     cap = int(cap)
