@@ -391,14 +391,15 @@ def _estimates_with_shots(inp: StrategyInputs, out: Outcomes, y_norm: float, k_n
     return exact, (est, int(np.sum(readout.shots - n0 - n1)))
 
 
-def _models(inp: StrategyInputs, out: Outcomes) -> tuple[tuple, list[np.ndarray]]:
-    """The error budget's two models and the closed-form operators: theirs, then the circuits' own
-    where the method has an exact closed-form model and operators were simulated (one
-    eigendecomposition of A for all, `model_operators`)."""
+def _models(inp: StrategyInputs, out: Outcomes) -> tuple[tuple, list[np.ndarray], list[np.ndarray] | None]:
+    """(the error budget's two models, their closed-form operators, the circuits' own closed-form
+    operators — None unless the method has an exact closed-form model and operators were
+    simulated), from one eigendecomposition of A (`model_operators`)."""
     algorithm = algorithm_of(inp.circuit)
     models = algorithm.budget_models(inp.circuit, inp.bounds, inp.inverse, inp.inverse_sqrt)
     own = algorithm.closed_form_model(inp.circuit) and out.operators is not None
-    return models, model_operators([*models, *((inp.inverse, inp.inverse_sqrt) if own else ())], inp.A)
+    operators = model_operators([*models, *((inp.inverse, inp.inverse_sqrt) if own else ())], inp.A)
+    return models, operators[:2], (operators[2:] if own else None)
 
 
 def _budget(inp: StrategyInputs, out: Outcomes, models, exact_gp, quantum, sampled, y_norm, k_norms, noisy=None) -> dict:
@@ -407,7 +408,7 @@ def _budget(inp: StrategyInputs, out: Outcomes, models, exact_gp, quantum, sampl
     circuit) → the chosen oracle → shots. ``models``: `_models`."""
     problem = inp.problem
     algorithm = algorithm_of(inp.circuit)
-    (model_inv, model_sqrt), operators = models
+    (model_inv, model_sqrt), operators, _ = models
     vm = operators[0] @ inp.yhat
     mp0, mp1 = hadamard_probabilities(vm, inp.khat)
     mpf = variance_probabilities(operators[1], inp.khat)
@@ -467,10 +468,10 @@ def _final(mean_q, var_q, est: ShotEstimates | None, noisy_answers):
 def _model_difference(models, out: Outcomes) -> float | None:
     """Largest difference between the closed-form model and the simulated operators, where the
     method has an exact closed-form model and operators were simulated (``models``: `_models`)."""
-    operators = models[1]
-    if len(operators) < 4:
+    own = models[2]
+    if own is None:
         return None
-    own_B, own_M = operators[2:]
+    own_B, own_M = own
     return max(max_abs(own_B - out.operators.B), max_abs(own_M - out.operators.M))
 
 
